@@ -1,0 +1,46 @@
+# tinygen - set-up and everyday commands. Everything installs into .venv (created on demand).
+PYTHON ?= python3
+VENV ?= .venv
+PY := $(VENV)/bin/python
+TG := $(VENV)/bin/tinygen
+DEMO_MODEL := examples/pump_vibration/pump_vibration.onnx
+DEMO_OUT := out/pump_vibration
+
+.PHONY: demo test lint bench fuzz toolchain tables clean
+
+$(VENV)/.installed: pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install -q --upgrade pip
+	$(PY) -m pip install -q -e '.[test]'
+	touch $@
+
+demo: $(VENV)/.installed
+	$(TG) emit $(DEMO_MODEL) -o $(DEMO_OUT) --force
+	$(TG) check $(DEMO_MODEL) --samples 100
+
+lint: $(VENV)/.installed
+	$(VENV)/bin/ruff check tinygen tests examples
+
+# The Arm cross toolchain and QEMU come from Debian's packages (target tests need them).
+toolchain:
+	@if ! command -v arm-none-eabi-gcc >/dev/null || ! command -v qemu-system-arm >/dev/null \
+	    || ! command -v clang >/dev/null; then \
+	  if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null; then \
+	    apt-get update -q && DEBIAN_FRONTEND=noninteractive apt-get install -y -q \
+	      gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang; \
+	  else \
+	    echo "note: target tests will skip: install gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang"; \
+	  fi; \
+	fi
+
+test: $(VENV)/.installed toolchain lint
+	$(PY) -m pytest
+
+bench: $(VENV)/.installed
+	$(PY) -m tinygen.bench
+
+fuzz: $(VENV)/.installed
+	$(PY) -m pytest tests/fuzz -p no:cacheprovider --hypothesis-profile=campaign
+
+clean:
+	rm -rf out build .pytest_cache

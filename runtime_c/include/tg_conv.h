@@ -1,0 +1,35 @@
+/* tg_conv.h - direct (im2col-free) convolution, channels-last.
+ *
+ * x: [n][in_h][in_w][in_c] int8, w: [out_c][k_h][k_w][in_c/groups] int8,
+ * bias: [out_c] int32 (at scale s_x*s_w[c]), y: [n][out_h][out_w][out_c].
+ * acc = bias[c] + sum (x - in_zp) * (w - w_zp[c]); padding contributes nothing (it reads as
+ * in_zp). 1-D convolution is the in_h = k_h = out_h = 1 case. y may not alias x.
+ * With rq != NULL y is int8 (requantized); with rq == NULL y is the raw int32 accumulator.
+ */
+#ifndef TG_CONV_H
+#define TG_CONV_H
+
+#include "tg_requant.h"
+
+typedef struct {
+    int32_t n, in_h, in_w, in_c;
+    int32_t out_h, out_w, out_c;
+    int32_t k_h, k_w;
+    int32_t stride_h, stride_w;
+    int32_t dil_h, dil_w;
+    int32_t pad_top, pad_left;     /* bottom/right padding follows from the output size */
+    int32_t groups;
+    int32_t in_zp;                 /* int8 domain */
+    const int32_t *w_zp;           /* per out channel, int8 domain; NULL when all zero */
+    const tg_requant_t *rq;        /* NULL: write int32 accumulators */
+} tg_conv_params_t;
+
+/* General grouped convolution (groups == 1 included). */
+void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
+             const int32_t *bias, void *y);
+
+/* Depthwise: groups == in_c, out_c = in_c * multiplier; w is [out_c][k_h][k_w][1]. */
+void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
+               const int32_t *bias, void *y);
+
+#endif /* TG_CONV_H */

@@ -1,0 +1,3 @@
+from tinygen.cli import main
+
+raise SystemExit(main())
