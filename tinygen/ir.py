@@ -26,6 +26,7 @@ class QuantParams:
     scale: np.ndarray  # float32, shape () or (C,)
     zero_point: np.ndarray  # int32, same shape as scale, int8 domain after the frontend
     axis: int | None = None
+    src_dtype: str = "int8"  # the ONNX element type it came from: "int8" or "uint8"
 
     @property
     def per_axis(self) -> bool:

@@ -1,0 +1,218 @@
+"""Load an ONNX file: checker, pinned input shapes, static shapes, constant folding.
+
+Produces a `ModelView`: the graph's nodes in topological order with every constant
+(initializers, Constant nodes, folded shape arithmetic) as a numpy array, and every known
+tensor shape/dtype. Nothing here knows about quantization.
+"""
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import onnx
+from onnx import helper, numpy_helper, shape_inference
+
+from tinygen.errors import TinygenError
+
+# Ops whose output is folded when every input is a constant: shape arithmetic that
+# exporters leave in graphs (Shape -> Gather -> Concat -> Reshape) and plain constants.
+# Quantization ops are never folded: their integer inputs are what we compile.
+FOLDABLE = {
+    "Constant", "Shape", "Gather", "Concat", "Unsqueeze", "Squeeze", "Cast", "Slice",
+    "Reshape", "Mul", "Add", "Sub", "Div", "ConstantOfShape", "Range", "Identity",
+    "ReduceProd", "Equal", "Where", "Expand", "Transpose", "Floor", "Ceil", "Min", "Max",
+}
+
+
+@dataclass
+class ModelView:
+    path: str
+    sha256: str
+    name: str
+    nodes: list[onnx.NodeProto]
+    consts: dict[str, np.ndarray]
+    shapes: dict[str, tuple[int, ...]]
+    dtypes: dict[str, np.dtype]
+    inputs: list[str]
+    outputs: list[str]
+    opset: dict[str, int] = field(default_factory=dict)
+
+    def attr(self, node: onnx.NodeProto, name: str, default=None):
+        for a in node.attribute:
+            if a.name == name:
+                return helper.get_attribute_value(a)
+        return default
+
+
+def parse_input_shapes(specs: list[str] | None) -> dict[str, tuple[int, ...]]:
+    """Parse --input-shape NAME=1x3x96x96 flags."""
+    out: dict[str, tuple[int, ...]] = {}
+    for spec in specs or []:
+        name, sep, dims = spec.rpartition("=")
+        try:
+            shape = tuple(int(d) for d in dims.lower().split("x"))
+        except ValueError:
+            shape = ()
+        if not sep or not name or not shape or min(shape) <= 0:
+            raise TinygenError(f"--input-shape '{spec}' is not NAME=D1xD2x... with positive dims")
+        out[name] = shape
+    return out
+
+
+def _read_model(path: str) -> tuple[onnx.ModelProto, bytes]:
+    try:
+        raw = Path(path).read_bytes()
+    except OSError as exc:
+        raise TinygenError(f"cannot read the model: {exc.strerror or exc}", file=path) from None
+    try:
+        model = onnx.load_from_string(raw)
+    except Exception:  # protobuf raises several types for truncated or foreign bytes
+        raise TinygenError("not an ONNX model (the protobuf does not parse)", file=path) from None
+    if not model.HasField("graph") or len(model.graph.node) == 0:
+        raise TinygenError("not an ONNX model (no graph or no nodes)", file=path)
+    return model, raw
+
+
+def _pin_shapes(model: onnx.ModelProto, pinned: dict[str, tuple[int, ...]], path: str) -> None:
+    init_names = {i.name for i in model.graph.initializer}
+    known = {i.name for i in model.graph.input if i.name not in init_names}
+    for name in pinned:
+        if name not in known:
+            raise TinygenError(f"--input-shape names '{name}', which is not a graph input "
+                               f"(inputs: {', '.join(sorted(known)) or 'none'})", file=path)
+    for inp in model.graph.input:
+        if inp.name in init_names:
+            continue
+        dims = inp.type.tensor_type.shape.dim
+        if inp.name in pinned:
+            shape = pinned[inp.name]
+            if len(dims) and len(dims) != len(shape):
+                raise TinygenError(f"--input-shape for '{inp.name}' has rank {len(shape)}, "
+                                   f"the model says rank {len(dims)}", file=path)
+            del dims[:]
+            for d in shape:
+                dims.add().dim_value = d
+        for i, d in enumerate(dims):
+            if not d.HasField("dim_value") or d.dim_value <= 0:
+                sym = d.dim_param or "?"
+                raise TinygenError(
+                    f"input '{inp.name}' has a symbolic dimension '{sym}' (axis {i}); pin it "
+                    f"with --input-shape {inp.name}=" + "x".join(
+                        str(x.dim_value) if x.dim_value > 0 else "N" for x in dims), file=path)
+
+
+def _topological(nodes: list[onnx.NodeProto], available: set[str], path: str):
+    """Order nodes so each comes after its producers; refuse cycles and dangling inputs."""
+    produced_by = {}
+    for n in nodes:
+        for o in n.output:
+            if o:
+                produced_by[o] = n
+    order, done, pending = [], set(available) | {""}, list(nodes)
+    while pending:
+        progress = False
+        rest = []
+        for n in pending:
+            if all(i in done for i in n.input):
+                order.append(n)
+                done.update(n.output)
+                progress = True
+            else:
+                rest.append(n)
+        pending = rest
+        if not progress:
+            n = pending[0]
+            missing = [i for i in n.input if i not in done]
+            cyc = [i for i in missing if i in produced_by]
+            why = (f"input '{cyc[0]}' is part of a cycle" if cyc
+                   else f"input '{missing[0]}' is produced by no node, initializer or input")
+            raise TinygenError(why, file=path, node=n.name or n.output[0], op=n.op_type)
+    return order
+
+
+def _fold(node: onnx.NodeProto, consts: dict[str, np.ndarray], opset: int):
+    from onnx.reference import ReferenceEvaluator
+
+    ins = [helper.make_tensor_value_info(i, helper.np_dtype_to_tensor_dtype(consts[i].dtype),
+                                         consts[i].shape) for i in node.input if i]
+    outs = [helper.make_tensor_value_info(o, onnx.TensorProto.UNDEFINED, None)
+            for o in node.output]
+    g = helper.make_graph([node], "fold", ins, outs)
+    m = helper.make_model(g, opset_imports=[helper.make_opsetid("", opset)])
+    feeds = {i: consts[i] for i in node.input if i}
+    return ReferenceEvaluator(m).run(None, feeds)
+
+
+def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
+    """Read, check and fold an ONNX model; every tensor gets a static shape where known."""
+    model, raw = _read_model(path)
+    pinned = parse_input_shapes(input_shapes)
+    _pin_shapes(model, pinned, path)
+    try:
+        onnx.checker.check_model(model)
+    except onnx.checker.ValidationError as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else "invalid model"
+        raise TinygenError(f"onnx checker: {first}", file=path) from None
+    opset = {o.domain or "": o.version for o in model.opset_import}
+    try:
+        inferred = shape_inference.infer_shapes(model, strict_mode=False)
+    except Exception as exc:  # inference failing is not fatal: we compute shapes ourselves
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+        if "Inferred shape and existing shape differ" in first or "Incompatible" in first:
+            raise TinygenError(f"shape mismatch: {first}", file=path) from None
+        inferred = model
+    g = inferred.graph
+    consts: dict[str, np.ndarray] = {}
+    for init in g.initializer:
+        try:
+            consts[init.name] = numpy_helper.to_array(init)
+        except Exception:
+            raise TinygenError(f"initializer '{init.name}' cannot be read (external data or "
+                               "a broken tensor)", file=path) from None
+    shapes: dict[str, tuple[int, ...]] = {}
+    dtypes: dict[str, np.dtype] = {}
+    for vi in list(g.input) + list(g.value_info) + list(g.output):
+        tt = vi.type.tensor_type
+        if tt.elem_type:
+            dtypes[vi.name] = helper.tensor_dtype_to_np_dtype(tt.elem_type)
+        if tt.HasField("shape") and all(d.HasField("dim_value") for d in tt.shape.dim):
+            shapes[vi.name] = tuple(int(d.dim_value) for d in tt.shape.dim)
+    for name, arr in consts.items():
+        shapes[name] = tuple(arr.shape)
+        dtypes[name] = arr.dtype
+    inputs = [i.name for i in g.input if i.name not in consts]
+    nodes = _topological(list(g.node), set(consts) | set(inputs), path)
+    kept = []
+    for n in nodes:
+        foldable = n.domain in ("", "ai.onnx") and n.op_type in FOLDABLE
+        if n.op_type == "Shape" and n.input[0] in shapes and n.input[0] not in consts:
+            consts[n.input[0] + "#shape"] = np.array(shapes[n.input[0]], dtype=np.int64)
+            start = next((helper.get_attribute_value(a) for a in n.attribute
+                          if a.name == "start"), 0)
+            end = next((helper.get_attribute_value(a) for a in n.attribute if a.name == "end"),
+                       None)
+            consts[n.output[0]] = np.array(shapes[n.input[0]][start:end], dtype=np.int64)
+            continue
+        if foldable and all((i in consts) for i in n.input if i):
+            try:
+                vals = _fold(n, consts, opset.get("", 17))
+            except Exception as exc:
+                raise TinygenError(f"cannot evaluate constant expression: {exc}", file=path,
+                                   node=n.name, op=n.op_type) from None
+            for o, v in zip(n.output, vals, strict=False):
+                consts[o] = np.asarray(v)
+                shapes[o] = tuple(np.asarray(v).shape)
+                dtypes[o] = np.asarray(v).dtype
+            continue
+        kept.append(n)
+    outputs = [o.name for o in g.output]
+    for o in outputs:
+        if o in consts:
+            raise TinygenError(f"graph output '{o}' is a constant; nothing to compute",
+                               file=path)
+    name = g.name or Path(path).stem
+    return ModelView(path=path, sha256=hashlib.sha256(raw).hexdigest(), name=name, nodes=kept,
+                     consts=consts, shapes=shapes, dtypes=dtypes, inputs=inputs,
+                     outputs=outputs, opset=opset)

@@ -1,0 +1,314 @@
+"""QDQ form: QuantizeLinear / DequantizeLinear around float ops.
+
+A float op whose inputs are DequantizeLinear outputs becomes a `Pending` op; the
+QuantizeLinear that consumes it supplies the output scale and the integer op is emitted
+then. Relu/Clip between the op and its QuantizeLinear narrow the clamp instead of costing
+an op. Data-movement ops (Reshape, Transpose, MaxPool, ...) keep their input's scale.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from tinygen.frontend import ops
+from tinygen.frontend.build import activation_range, quantize_real
+from tinygen.ir import QuantParams
+
+# Producers a following Relu/Clip can be folded into (their output clamp).
+FUSABLE = {"Conv", "Gemm", "MatMul", "Add", "Mul"}
+
+
+def _q_params(L, node, out_dtype_hint=None):
+    """(QuantParams, source dtype) of a QuantizeLinear/DequantizeLinear node."""
+    scale = L.const(node.input[1], "scale")
+    zp = L.opt_const(node, 2, "zero point")
+    if L.view.attr(node, "block_size", 0):
+        raise L.error("blocked quantization (block_size) is not supported")
+    out_dt = L.view.attr(node, "output_dtype", 0)
+    if zp is not None:
+        src = zp.dtype
+    elif out_dt:
+        from onnx import helper
+        src = helper.tensor_dtype_to_np_dtype(out_dt)
+    else:
+        src = out_dtype_hint or np.dtype(np.uint8)
+    if np.dtype(src) not in (np.int8, np.uint8) and np.dtype(src) != np.int32:
+        raise L.error(f"{np.dtype(src).name} quantization is not supported (int8 and uint8 only)")
+    if np.asarray(scale).dtype != np.float32:
+        raise L.error(f"scale of type {np.asarray(scale).dtype} is not supported (float32 only)")
+    axis = L.view.attr(node, "axis", 1)
+    return scale, zp, np.dtype(src), axis
+
+
+def _activation_quant(L, node, scale, zp, src, axis, rank):
+    if np.asarray(scale).size != 1:
+        raise L.error("activations must be quantized per-tensor (a per-axis scale on "
+                      f"'{node.input[0]}')")
+    if src == np.int32:
+        raise L.error("int32 activations are not supported")
+    return L.b.quant(scale, zp if zp is not None else np.zeros((), src), src)
+
+
+def lower_quantize(L, node) -> None:
+    from tinygen.frontend.lower import Const, Deq, FloatIn, Int, Pending
+
+    scale, zp, src, axis = _q_params(L, node)
+    x_name, out = node.input[0], node.output[0]
+    v = L.value(x_name)
+    if isinstance(v, Const):  # quantize a float constant at compile time
+        a = np.asarray(v.a, dtype=np.float32)
+        q = L.b.quant(scale, zp if zp is not None else np.zeros((), src), src,
+                      axis=(axis + a.ndim) % max(a.ndim, 1) if np.asarray(scale).size > 1
+                      else None)
+        s = np.asarray(q.scale, np.float32)
+        z = np.asarray(q.zero_point)
+        if q.per_axis:
+            shape = [1] * a.ndim
+            shape[q.axis] = -1
+            s, z = s.reshape(shape), z.reshape(shape)
+        data = np.clip(np.rint(a / s) + z, -128, 127).astype(np.int8)
+        L.env[out] = Int(L.b.add_tensor(out, data.shape, "int8", q, data))
+        return
+    rank = len(L.view.shapes.get(x_name, ()))
+    q = _activation_quant(L, node, scale, zp, src, axis, rank)
+    if isinstance(v, FloatIn):
+        L.env[out] = Int(L.quantize_input(x_name, q, src, out))
+    elif isinstance(v, Deq):
+        L.env[out] = Int(ops.emit_lut(L.b, out, v.t, q, "identity"))
+    elif isinstance(v, Pending):
+        saved = (L.b.node_name, L.b.node_op)
+        L.b.at(v.node, v.op)
+        L.env[out] = Int(v.finish(out, q, *v.act))
+        L.b.at(*saved)
+    elif isinstance(v, Int):
+        raise L.error(f"QuantizeLinear of '{x_name}', which is already quantized")
+
+
+def lower_dequantize(L, node) -> None:
+    from tinygen.frontend.lower import Const, Deq, FloatIn, Int
+
+    x_name, out = node.input[0], node.output[0]
+    v = L.value(x_name)
+    hint = np.asarray(v.a).dtype if isinstance(v, Const) else None
+    if isinstance(v, FloatIn):
+        hint = L.view.dtypes.get(x_name)
+    scale, zp, src, axis = _q_params(L, node, hint)
+    if isinstance(v, Const):
+        a = np.asarray(v.a)
+        if a.dtype != src and zp is not None:
+            raise L.error(f"zero point type {src} differs from data type {a.dtype}")
+        src = a.dtype
+        if np.dtype(src) == np.int32:  # a bias: keep int32 with its scale
+            bq = QuantParams(np.asarray(scale, np.float32), np.zeros(np.shape(scale), np.int32))
+            t = L.b.add_tensor(x_name, a.shape, "int32", bq, a.astype(np.int32))
+            L.env[out] = Deq(t)
+            return
+        if np.dtype(src) not in (np.int8, np.uint8):
+            raise L.error(f"{np.dtype(src).name} weights are not supported (int8/uint8 only)")
+        per_axis = np.asarray(scale).size > 1
+        ax = (axis + a.ndim) % a.ndim if per_axis else None
+        if per_axis and a.shape[ax] != np.asarray(scale).size:
+            raise L.error(f"{np.asarray(scale).size} scales for axis {ax} of size {a.shape[ax]}")
+        q = L.b.quant(scale, zp if zp is not None else np.zeros((), src), src, axis=ax)
+        L.env[out] = Deq(L.b.const_int8(x_name, a, src, q))
+        return
+    if isinstance(v, FloatIn):  # an int8/uint8 graph input
+        q = _activation_quant(L, node, scale, zp, src, axis, 0)
+        L.env[out] = Deq(L.quantize_input(x_name, q, src, out))
+        return
+    if not isinstance(v, Int):
+        raise L.error(f"DequantizeLinear of '{x_name}', which is not a quantized tensor")
+    q = _activation_quant(L, node, scale, zp, src, axis, 0)
+    if not ops.same_quant(v.t.quant, q):
+        raise L.error(f"DequantizeLinear of '{x_name}' uses parameters other than the ones "
+                      "it was quantized with")
+    L.env[out] = Deq(v.t)
+
+
+def _bias(L, name):
+    """(data, scale or None) of a bias input: DQ(int32) or a float constant."""
+    from tinygen.frontend.lower import Const, Deq
+
+    if not name:
+        return None, None
+    v = L.value(name)
+    if isinstance(v, Deq) and v.t.is_const and v.t.dtype == "int32":
+        return v.t.data, (v.t.quant.scale if v.t.quant is not None else None)
+    if isinstance(v, Const):
+        return np.asarray(v.a, dtype=np.float64), None
+    raise L.error(f"bias '{name}' must be a constant (int32 DequantizeLinear or float)")
+
+
+def _attrs(L, node) -> dict:
+    from onnx import helper
+    return {a.name: helper.get_attribute_value(a) for a in node.attribute}
+
+
+def lower_float_op(L, node) -> None:
+    from tinygen.frontend.lower import Deq, Pending
+
+    op, out, b = node.op_type, node.output[0], L.b
+    attrs = _attrs(L, node)
+    here = (b.node_name, b.node_op)
+
+    def pending(finish, transparent_q=None, fusable=False):
+        p = Pending(finish, transparent_q, (None, None, None), here[0], here[1],
+                    {"fusable": fusable})
+        L.env[out] = p
+
+    if op in ("Relu", "Clip"):
+        lo, hi = 0.0, None
+        if op == "Clip":
+            lo_c = L.opt_const(node, 1, "Clip min")
+            hi_c = L.opt_const(node, 2, "Clip max")
+            lo = float(lo_c) if lo_c is not None else attrs.get("min", -np.inf)
+            hi = float(hi_c) if hi_c is not None else attrs.get("max", np.inf)
+        src = L.value(node.input[0])
+        if isinstance(src, Pending) and src.extra.get("fusable") and src.act[0] is None:
+            L.env[out] = Pending(src.finish, None, ("clamp", lo, hi), src.node, src.op,
+                                 src.extra)
+            return
+        x = L.deq_tensor(node.input[0])
+        fn = "relu" if op == "Relu" else "clip"
+        args = {} if op == "Relu" else {"min": lo, "max": hi}
+        pending(lambda o, q, *a: ops.emit_lut(b, o, x, q, fn, **args), x.quant)
+        return
+    if op in ("LeakyRelu", "Sigmoid", "Tanh", "HardSigmoid", "HardSwish"):
+        x = L.deq_tensor(node.input[0])
+        fn = {"LeakyRelu": "leaky_relu", "Sigmoid": "sigmoid", "Tanh": "tanh",
+              "HardSigmoid": "hard_sigmoid", "HardSwish": "hard_swish"}[op]
+        args = {}
+        if op == "LeakyRelu":
+            args = {"alpha": float(attrs.get("alpha", 0.01))}
+        if op == "HardSigmoid":
+            args = {"alpha": float(attrs.get("alpha", 0.2)), "beta": float(attrs.get("beta", 0.5))}
+        pending(lambda o, q, *a: ops.emit_lut(b, o, x, q, fn, **args))
+        return
+    if op == "Conv":
+        x, w = L.deq_tensor(node.input[0]), L.deq_tensor(node.input[1], "weight")
+        bias, bscale = _bias(L, node.input[2] if len(node.input) > 2 else "")
+
+        def fin(o, q, kind, lo, hi):
+            bi = ops.bias_to_int32(b, bias, bscale, x.quant, w.quant, w.shape[0])
+            return ops.emit_conv(b, o, x, w, bi, q, activation_range(kind, lo, hi, q), attrs)
+        pending(fin, fusable=True)
+        return
+    if op in ("Gemm", "MatMul"):
+        x, w = L.deq_tensor(node.input[0]), L.deq_tensor(node.input[1], "weight")
+        layout = "kn"
+        bias = bscale = None
+        if op == "Gemm":
+            if attrs.get("transA", 0):
+                raise L.error("Gemm with transA=1 is not supported")
+            if attrs.get("alpha", 1.0) != 1.0 or (len(node.input) > 2 and
+                                                   attrs.get("beta", 1.0) != 1.0):
+                raise L.error("Gemm with alpha or beta other than 1 is not supported")
+            layout = "nk" if attrs.get("transB", 0) else "kn"
+            bias, bscale = _bias(L, node.input[2] if len(node.input) > 2 else "")
+        n = w.shape[0] if layout == "nk" else w.shape[-1]
+
+        def fin(o, q, kind, lo, hi):
+            bi = None if bias is None else ops.bias_to_int32(b, bias, bscale, x.quant,
+                                                            w.quant, n)
+            return ops.emit_fc(b, o, x, w, bi, q, activation_range(kind, lo, hi, q), layout)
+        pending(fin, fusable=True)
+        return
+    if op in ("Add", "Mul"):
+        a, c = L.deq_tensor(node.input[0]), L.deq_tensor(node.input[1])
+        kind = op.lower()
+        pending(lambda o, q, k, lo, hi: ops.emit_binary(b, kind, o, a, c, q,
+                                                        activation_range(k, lo, hi, q)),
+                fusable=True)
+        return
+    if op in ("AveragePool", "GlobalAveragePool"):
+        x = L.deq_tensor(node.input[0])
+        pa = dict(attrs, **({"global": True} if op == "GlobalAveragePool" else {}))
+        pending(lambda o, q, *a: ops.emit_pool(b, "avgpool", o, x, q, pa), x.quant)
+        return
+    if op == "Softmax":
+        x = L.deq_tensor(node.input[0])
+        axis = int(attrs.get("axis", -1 if L.opset >= 13 else 1))
+        pending(lambda o, q, *a: ops.emit_softmax(b, o, x, q, axis, L.opset))
+        return
+    if op == "Concat":
+        xs = [L.deq_tensor(n) for n in node.input]
+        same = all(ops.same_quant(t.quant, xs[0].quant) for t in xs)
+        pending(lambda o, q, *a: ops.emit_concat(b, o, xs, q, int(attrs["axis"])),
+                xs[0].quant if same else None)
+        return
+    # Data movement keeps the input's scale: emit now, as a dequantized value.
+    x = L.deq_tensor(node.input[0])
+    L.env[out] = Deq(lower_data_movement(L, node, x, attrs, out))
+
+
+def lower_data_movement(L, node, x, attrs, out):
+    """Ops that move bytes without changing their scale (shared with the QOperator form)."""
+    op, b = node.op_type, L.b
+    if op == "MaxPool":
+        if len(node.output) > 1 and node.output[1]:
+            raise L.error("MaxPool Indices output is not supported")
+        return ops.emit_pool(b, "maxpool", out, x, x.quant, attrs)
+    if op == "Identity":
+        return ops.emit_view(b, out, x, x.shape)
+    if op == "Flatten":
+        axis = int(attrs.get("axis", 1))
+        axis = axis + len(x.shape) if axis < 0 else axis
+        lead = int(np.prod(x.shape[:axis], dtype=np.int64))
+        return ops.emit_view(b, out, x, (lead, x.size // max(lead, 1)))
+    if op == "Reshape":
+        shape = ops.resolve_reshape(b, x.shape, L.const(node.input[1], "Reshape shape"),
+                                    int(attrs.get("allowzero", 0)))
+        return ops.emit_view(b, out, x, shape)
+    if op in ("Squeeze", "Unsqueeze"):
+        axes = attrs.get("axes")
+        if axes is None and len(node.input) > 1 and node.input[1]:
+            axes = L.const(node.input[1], f"{op} axes").reshape(-1).tolist()
+        shape = list(x.shape)
+        if op == "Squeeze":
+            rank = len(shape)
+            axes = [a + rank if a < 0 else a for a in (axes if axes is not None else
+                                                      [i for i, d in enumerate(shape) if d == 1])]
+            if any(shape[a] != 1 for a in axes):
+                raise L.error(f"cannot squeeze axes {axes} of shape {shape}")
+            shape = [d for i, d in enumerate(shape) if i not in axes]
+        else:
+            rank = len(shape) + len(axes or [])
+            for a in sorted(a + rank if a < 0 else a for a in (axes or [])):
+                shape.insert(a, 1)
+        return ops.emit_view(b, out, x, shape)
+    if op == "Transpose":
+        return ops.emit_transpose(b, out, x, attrs.get("perm"))
+    if op == "Pad":
+        mode = attrs.get("mode", b"constant")
+        mode = mode.decode() if isinstance(mode, bytes) else mode
+        if mode != "constant":
+            raise L.error(f"Pad mode '{mode}' is not supported (constant only)")
+        pads = attrs.get("pads")
+        if pads is None:
+            pads = L.const(node.input[1], "Pad pads").reshape(-1).tolist()
+        if len(node.input) > 3 and node.input[3]:
+            raise L.error("Pad with an axes input is not supported")
+        return ops.emit_pad(b, out, x, pads, _pad_value(L, node, x))
+    raise L.error(f"op {op} is not supported here")
+
+
+def _pad_value(L, node, x) -> int:
+    """The pad value in x's int8 domain: a raw int constant (QOperator) or a real one."""
+    from tinygen.frontend.lower import Const, Deq
+
+    if len(node.input) < 3 or not node.input[2]:
+        return quantize_real(0.0, x.quant)
+    v = L.value(node.input[2])
+    if isinstance(v, Deq) and v.t.is_const:
+        return int(v.t.data.reshape(-1)[0])  # same quantization as x (checked upstream)
+    if isinstance(v, Const) and np.asarray(v.a).dtype.kind in "iu":
+        raw = int(np.asarray(v.a).reshape(-1)[0])
+        return raw - 128 if x.quant.src_dtype == "uint8" else raw
+    if isinstance(v, Const):
+        return quantize_real(float(np.asarray(v.a).reshape(-1)[0]), x.quant)
+    raise L.error("Pad constant_value must be a constant")
+
+
+FLOAT_OPS = ("Conv", "Gemm", "MatMul", "Add", "Mul", "Concat", "MaxPool", "AveragePool",
+             "GlobalAveragePool", "Relu", "Clip", "LeakyRelu", "Sigmoid", "Tanh",
+             "HardSigmoid", "HardSwish", "Softmax", "Reshape", "Flatten", "Squeeze",
+             "Unsqueeze", "Transpose", "Pad", "Identity")

@@ -1,0 +1,1 @@
+"""Graph -> Graph passes over the integer IR, each doing one thing (see each docstring)."""

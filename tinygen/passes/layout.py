@@ -1,0 +1,138 @@
+"""Choose each activation's storage order; insert the transposes that order needs.
+
+Spatial tensors (rank 3 and 4) are stored channels-last so that conv and pooling kernels
+read each pixel's channels contiguously. Kernels that need ONNX order (fully connected,
+reshapes that really move bytes, Transpose) get an explicit conversion in front of them.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from tinygen.ir import CHANNELS_LAST, PLAIN, Graph, Op, Tensor, storage_perm, storage_shape
+
+SPATIAL = {"conv", "maxpool", "avgpool"}
+
+
+def natural_layout(t: Tensor) -> str:
+    return CHANNELS_LAST if len(t.shape) >= 3 else PLAIN
+
+
+def same_bytes(shape, layout_a: str, layout_b: str) -> bool:
+    """True when two layouts of one logical shape put the bytes in the same order."""
+    if layout_a == layout_b or len(shape) < 3:
+        return True
+    non_unit = [i for i in range(len(shape)) if shape[i] != 1]
+    pa = [a for a in storage_perm(len(shape), layout_a) if a in non_unit]
+    pb = [a for a in storage_perm(len(shape), layout_b) if a in non_unit]
+    return pa == pb
+
+
+def conversion_perm(shape, src: str, dst: str) -> tuple[int, ...]:
+    """Storage-axis permutation taking a tensor stored in `src` order to `dst` order."""
+    ps, pd = storage_perm(len(shape), src), storage_perm(len(shape), dst)
+    return tuple(ps.index(a) for a in pd)
+
+
+def assign_layout(graph: Graph) -> Graph:
+    """Set Tensor.layout everywhere; add 'transpose' ops where an op needs another order.
+
+    Needs: the lowered IR (logical ONNX shapes). Leaves: every op's inputs in the layout its
+    kernel expects; `transpose` ops carry a storage-axis perm (attr `storage_perm`).
+    """
+    tensors = graph.tensors
+    for io in graph.inputs:
+        tensors[io.name].layout = natural_layout(tensors[io.name])
+    converted: dict[tuple[str, str], str] = {}
+    new_ops: list[Op] = []
+
+    def want(name: str, layout: str, op: Op) -> str:
+        t = tensors[name]
+        if t.is_const:
+            if len(t.shape) >= 3:
+                t.layout = layout  # constants are re-laid at compile time, for free
+            return name
+        if same_bytes(t.shape, t.layout, layout):
+            if t.layout == layout:
+                return name
+        key = (name, layout)
+        if key not in converted:
+            out = Tensor(f"{name}@{layout}", t.shape, t.dtype, t.quant, None, layout)
+            tensors[out.name] = out
+            if same_bytes(t.shape, t.layout, layout):
+                new_ops.append(Op("view", [name], [out.name], {}, op.name, op.onnx_op))
+            else:
+                perm = conversion_perm(t.shape, t.layout, layout)
+                new_ops.append(Op("transpose", [name], [out.name],
+                                  {"storage_perm": perm, "inserted": True}, op.name,
+                                  op.onnx_op))
+            converted[key] = out.name
+        return converted[key]
+
+    for op in graph.ops:
+        outs = [tensors[o] for o in op.outputs]
+        k = op.kind
+        if k in SPATIAL:
+            op.inputs[0] = want(op.inputs[0], CHANNELS_LAST, op)
+            if k == "conv":
+                tensors[op.inputs[1]].layout = CHANNELS_LAST  # OIHW stored OHWI
+            outs[0].layout = CHANNELS_LAST
+        elif k in ("lut", "copy"):
+            outs[0].layout = tensors[op.inputs[0]].layout
+        elif k in ("add", "mul"):
+            # Broadcasting goes through strides (see passes/params.py), so any mix of
+            # layouts works; the output takes the layout of its first full-rank activation.
+            rank = len(outs[0].shape)
+            acts = [tensors[n] for n in op.inputs
+                    if not tensors[n].is_const and len(tensors[n].shape) == rank]
+            lay = acts[0].layout if acts else natural_layout(outs[0])
+            for n in op.inputs:
+                if tensors[n].is_const and len(tensors[n].shape) == rank and rank >= 3:
+                    tensors[n].layout = lay
+            outs[0].layout = lay
+        elif k == "concat":
+            lay = tensors[op.inputs[0]].layout
+            op.inputs = [want(n, lay, op) for n in op.inputs]
+            outs[0].layout = lay
+            op.attrs["storage_axis"] = storage_perm(len(outs[0].shape), lay).index(
+                op.attrs["axis"])
+        elif k == "softmax":
+            t = tensors[op.inputs[0]]
+            sp = storage_perm(len(t.shape), t.layout)
+            if sp.index(op.attrs["axis"]) != len(t.shape) - 1:
+                op.inputs[0] = want(op.inputs[0], PLAIN, op)
+                t = tensors[op.inputs[0]]
+            outs[0].layout = t.layout
+        elif k == "pad":
+            outs[0].layout = tensors[op.inputs[0]].layout
+        elif k == "view":
+            t = tensors[op.inputs[0]]
+            if tuple(outs[0].shape) == tuple(t.shape):
+                outs[0].layout = t.layout
+            else:
+                op.inputs[0] = want(op.inputs[0], PLAIN, op)
+                outs[0].layout = PLAIN
+        elif k == "transpose":
+            t = tensors[op.inputs[0]]
+            inv = storage_perm(len(t.shape), t.layout)
+            op.attrs["storage_perm"] = tuple(inv.index(p) for p in op.attrs["perm"])
+            outs[0].layout = PLAIN
+        elif k == "fc":
+            op.inputs[0] = want(op.inputs[0], PLAIN, op)
+            if not tensors[op.inputs[1]].is_const:
+                op.inputs[1] = want(op.inputs[1], PLAIN, op)
+            outs[0].layout = PLAIN
+        else:
+            raise AssertionError(f"layout: unknown op kind {k}")
+        new_ops.append(op)
+    graph.ops = new_ops
+    return graph
+
+
+def storage_data(t: Tensor) -> np.ndarray:
+    """A constant's data in its storage order (what goes to flash)."""
+    assert t.data is not None
+    perm = storage_perm(len(t.shape), t.layout)
+    return np.ascontiguousarray(np.transpose(t.data.reshape(t.shape), perm))
+
+
+__all__ = ["assign_layout", "storage_data", "storage_shape", "same_bytes"]

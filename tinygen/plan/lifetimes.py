@@ -1,0 +1,107 @@
+"""Buffers and their lifetimes for one execution order.
+
+A buffer is one piece of memory shared by a tensor, the views of it (Reshape, Flatten, ...)
+and, when in-place execution is allowed, the outputs of kernels that may overwrite their
+input (tables, additions) at the input's last use. Its lifetime is the closed step range
+[first, last] from the op that writes it to the last op that reads it; graph inputs are
+written at step -1 and graph outputs read at step len(ops).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from tinygen.ir import Graph
+
+# Kernels whose output may overwrite an input the op reads last (see the kernel headers).
+INPLACE_OK = {"lut": (0,), "add": (0, 1), "mul": (0, 1)}
+
+
+@dataclass
+class Buffer:
+    name: str
+    size: int  # bytes
+    first: int
+    last: int
+    tensors: list[str] = field(default_factory=list)
+    external: str | None = None  # "input:i" / "output:i" with --io external
+    region: str | None = None
+    offset: int | None = None
+
+    def overlaps(self, other: Buffer) -> bool:
+        return not (self.last < other.first or other.last < self.first)
+
+
+def build_buffers(graph: Graph, order: list[int], inplace: bool, io: str
+                  ) -> tuple[dict[str, Buffer], dict[str, str]]:
+    """Group tensors into buffers; returns (buffers by name, tensor -> buffer name)."""
+    tensors = graph.tensors
+    step_of = {k: s for s, k in enumerate(order)}
+    owner: dict[str, str] = {}
+    buffers: dict[str, Buffer] = {}
+    end = len(order)
+    io_names = {io_.name for io_ in graph.inputs} | {io_.name for io_ in graph.outputs}
+
+    def new_buffer(t: str, first: int) -> None:
+        buffers[t] = Buffer(t, tensors[t].nbytes, first, first, [t])
+        owner[t] = t
+
+    for i, io_ in enumerate(graph.inputs):
+        new_buffer(io_.name, -1)
+        if io == "external":
+            buffers[io_.name].external = f"input:{i}"
+    last_use: dict[str, int] = {}
+    for k in order:
+        for t in graph.ops[k].inputs:
+            last_use[t] = step_of[k]
+    for k in order:
+        op, s = graph.ops[k], step_of[k]
+        for t in op.inputs:
+            if t in owner:
+                buffers[owner[t]].last = max(buffers[owner[t]].last, s)
+        out = op.outputs[0]
+        if op.kind == "view":
+            src = owner[op.inputs[0]]
+            owner[out] = src
+            buffers[src].tensors.append(out)
+            continue
+        target = None
+        if inplace and op.kind in INPLACE_OK:
+            for idx in INPLACE_OK[op.kind]:
+                if idx >= len(op.inputs):
+                    continue
+                t = op.inputs[idx]
+                if t not in owner or tensors[t].is_const:
+                    continue
+                buf = buffers[owner[t]]
+                same = (tensors[t].nbytes == tensors[out].nbytes
+                        and tensors[t].shape == tensors[out].shape
+                        and tensors[t].layout == tensors[out].layout)
+                alive_later = any(last_use.get(x, -1) > s for x in buf.tensors)
+                if same and not alive_later and not (set(buf.tensors) & io_names) \
+                        and out not in io_names:
+                    target = buf.name
+                    break
+        if target is not None:
+            owner[out] = target
+            buffers[target].tensors.append(out)
+            buffers[target].last = max(buffers[target].last, s)
+        else:
+            new_buffer(out, s)
+    for i, io_ in enumerate(graph.outputs):
+        buf = buffers[owner[io_.name]]
+        buf.last = end
+        if io == "external":
+            buf.external = f"output:{i}"
+    for buf in buffers.values():
+        for t in buf.tensors:
+            buf.last = max(buf.last, last_use.get(t, buf.first))
+    return buffers, owner
+
+
+def lower_bound(buffers: dict[str, Buffer], steps: int) -> int:
+    """Largest total size of buffers live at one step (arena buffers only)."""
+    best = 0
+    for s in range(-1, steps + 1):
+        best = max(best, sum(b.size for b in buffers.values()
+                             if b.external is None and b.first <= s <= b.last))
+    return best

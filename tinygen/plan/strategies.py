@@ -1,0 +1,101 @@
+"""Offset assignment: buffers with overlapping lifetimes get disjoint byte ranges.
+
+  greedy-size  largest buffer first, each at the lowest aligned offset that fits between the
+               already-placed buffers it overlaps in time (best known general heuristic;
+               greedy-by-size offset assignment)
+  first-fit    buffers in the order they are written, lowest fitting offset
+  naive        no reuse: every buffer its own range (what a planner-less build would use)
+With several regions (--region NAME=SIZE), a buffer goes to the first region in which it
+fits, regions tried in the order given.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from tinygen.plan.lifetimes import Buffer
+
+
+@dataclass
+class Region:
+    name: str
+    capacity: int | None  # None: unbounded (sized by the plan)
+    used: int = 0
+
+
+@dataclass
+class MemoryPlan:
+    buffers: dict[str, Buffer]
+    owner: dict[str, str]
+    regions: list[Region]
+    align: int
+    planner: str
+    order: list[int]
+    lower_bound: int = 0
+    naive: int = 0
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def arena_bytes(self) -> int:
+        return sum(r.used for r in self.regions)
+
+    def offset_of(self, tensor: str) -> tuple[Buffer, int]:
+        buf = self.buffers[self.owner[tensor]]
+        return buf, buf.offset or 0
+
+
+def _align(x: int, a: int) -> int:
+    return (x + a - 1) // a * a
+
+
+def _lowest_fit(buf: Buffer, placed: list[Buffer], align: int, capacity: int | None):
+    size = _align(max(buf.size, 1), align)
+    spans = sorted((p.offset, p.offset + _align(max(p.size, 1), align))
+                   for p in placed if p.overlaps(buf))
+    off = 0
+    for lo, hi in spans:
+        if off + size <= lo:
+            break
+        off = max(off, _align(hi, align))
+    if capacity is not None and off + size > capacity:
+        return None
+    return off
+
+
+def _assign(bufs: list[Buffer], regions: list[Region], align: int, reuse: bool) -> None:
+    placed: dict[str, list[Buffer]] = {r.name: [] for r in regions}
+    for buf in bufs:
+        for r in regions:
+            if reuse:
+                off = _lowest_fit(buf, placed[r.name], align, r.capacity)
+            else:
+                off = r.used
+                if r.capacity is not None and off + _align(buf.size, align) > r.capacity:
+                    off = None
+            if off is None:
+                continue
+            buf.offset, buf.region = off, r.name
+            placed[r.name].append(buf)
+            r.used = max(r.used, off + _align(max(buf.size, 1), align))
+            break
+        else:
+            total = sum(r.capacity or 0 for r in regions)
+            raise MemoryError(f"buffer '{buf.name}' ({buf.size} B) fits in no region "
+                              f"(regions total {total} B)")
+
+
+def plan_memory(buffers: dict[str, Buffer], owner: dict[str, str], order: list[int],
+                planner: str, align: int, regions: list[tuple[str, int]] | None
+                ) -> MemoryPlan:
+    if planner not in PLANNERS:
+        raise ValueError(planner)
+    regs = [Region(n, c) for n, c in regions] if regions else [Region("arena", None)]
+    arena_bufs = [b for b in buffers.values() if b.external is None]
+    if planner == "greedy-size":
+        bufs = sorted(arena_bufs, key=lambda b: (-b.size, b.first, b.name))
+    else:
+        bufs = sorted(arena_bufs, key=lambda b: (b.first, b.name))
+    _assign(bufs, regs, align, reuse=planner != "naive")
+    return MemoryPlan(buffers, owner, regs, align, planner, order)
+
+
+PLANNERS = ("greedy-size", "first-fit", "naive")
