@@ -16,9 +16,7 @@
 #include <stdint.h>
 #include <stddef.h>
 
-#ifndef TG_WITH_FLOAT_REQUANT
-#define TG_WITH_FLOAT_REQUANT 0
-#endif
+#include "tg_config.h"
 
 #if defined(__FAST_MATH__) && TG_WITH_FLOAT_REQUANT
 #error "float requantization must not be compiled with -ffast-math (it would reassociate the rounding)"
