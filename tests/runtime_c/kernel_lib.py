@@ -54,6 +54,19 @@ def kernel_lib(sources: list[str], cdef: str):
     return _load(tuple(sources), cdef)
 
 
+def pick_zero_point(rng) -> int:
+    """An int8-domain zero point: the extremes -128 / 127 half of the time, else any."""
+    return int(rng.choice([-128, 127, int(rng.integers(-128, 128))]))
+
+
+def to_int8_domain(q: np.ndarray, zp) -> tuple[np.ndarray, np.ndarray]:
+    """uint8 data with zero point z equals int8 data q - 128 with zero point z - 128."""
+    if q.dtype == np.uint8:
+        return ((q.astype(np.int16) - 128).astype(np.int8),
+                np.asarray(zp, dtype=np.int32) - 128)
+    return q, np.asarray(zp, dtype=np.int32)
+
+
 class Marshal:
     """Turns numpy arrays and Requant into cffi pointers, keeping every buffer alive."""
 

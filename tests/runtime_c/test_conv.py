@@ -7,7 +7,13 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from tests.runtime_c.kernel_lib import REQUANT_CDEF, Marshal, kernel_lib
+from tests.runtime_c.kernel_lib import (
+    REQUANT_CDEF,
+    Marshal,
+    kernel_lib,
+    pick_zero_point,
+    to_int8_domain,
+)
 from tinygen.reference.conv import (
     ConvParams,
     auto_pads,
@@ -56,11 +62,6 @@ def run_c_conv(kernel: str, x, w, bias, p: ConvParams) -> np.ndarray:
     getattr(lib, kernel)(params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
                          m.array(bias, np.int32, "int32_t"), y_ptr)
     return y
-
-
-def pick_zero_point(rng) -> int:
-    """The int8 extremes half of the time, else anything in range."""
-    return int(rng.choice([-128, 127, int(rng.integers(-128, 128))]))
 
 
 def channel_counts(rng, group_kind: str) -> tuple[int, int, int]:
@@ -179,7 +180,7 @@ def test_large_channel_runs_with_dsp_tails():
                                           conv(x, w, bias, params))
 
 
-# --- auto_pad and output size: the ONNX Conv spec, checked through onnx.reference ----------
+# --- auto_pad and output size: the ONNX Conv spec --------------------------------------
 
 
 def test_auto_pads_follow_the_onnx_conv_spec():
@@ -198,14 +199,6 @@ def test_auto_pads_follow_the_onnx_conv_spec():
 
 
 # --- the reference against onnx.reference ConvInteger -------------------------------------
-
-
-def to_int8_domain(q: np.ndarray, zp) -> tuple[np.ndarray, np.ndarray]:
-    """uint8 data with zero point z equals int8 data q - 128 with zero point z - 128."""
-    if q.dtype == np.uint8:
-        return ((q.astype(np.int16) - 128).astype(np.int8),
-                np.asarray(zp, dtype=np.int32) - 128)
-    return q, np.asarray(zp, dtype=np.int32)
 
 
 def nchw_to_channels_last(a: np.ndarray, spatial: int) -> np.ndarray:
