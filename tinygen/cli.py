@@ -1,0 +1,236 @@
+"""Command line: verbs and flags only; the work is done by the library.
+
+Exit codes: 0 success, 1 a check found a difference, 2 bad input or a limit exceeded (one
+line on stderr naming file, node, op and reason). With --json exactly one JSON object goes
+to stdout; human text goes to stderr.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import re
+import sys
+
+from tinygen import __version__
+from tinygen.errors import TinygenError
+
+SIZE_RE = re.compile(r"^(0x[0-9a-fA-F]+|\d+)([kKmM]?)$")
+
+
+def parse_size(text: str) -> int:
+    """262144, 256K, 1M, 0x40000 -> bytes."""
+    m = SIZE_RE.match(text.strip())
+    if not m:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a size (262144, 256K, 1M, 0x40000)")
+    n = int(m.group(1), 0)
+    return n * {"": 1, "k": 1024, "m": 1024 * 1024}[m.group(2).lower()]
+
+
+def parse_region(text: str) -> tuple[str, int]:
+    name, sep, size = text.partition("=")
+    if not sep or not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,15}", name):
+        raise argparse.ArgumentTypeError(f"--region '{text}' is not NAME=SIZE")
+    return name.lower(), parse_size(size)
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str):  # one line, exit 2, no usage dump
+        raise TinygenError(f"{self.prog}: {message}")
+
+
+def add_build_flags(p: argparse.ArgumentParser) -> None:
+    from tinygen.plan import PLANNERS
+    g = p.add_argument_group("build flags")
+    g.add_argument("--requant", choices=["fixed", "float"], default="fixed",
+                   help="fixed: Q31 multiplier + shift, no FPU (default); float: float32 scale")
+    g.add_argument("--prefix", default="model", help="C name prefix and file name (model)")
+    g.add_argument("--input-shape", action="append", default=[], metavar="NAME=1x3x96x96",
+                   help="pin a symbolic input shape (repeatable)")
+    g.add_argument("--planner", choices=list(PLANNERS), default="greedy-size")
+    g.add_argument("--order", choices=["given", "min-peak"], default="given")
+    g.add_argument("--align", type=int, default=8, metavar="BYTES")
+    g.add_argument("--arena-limit", type=parse_size, metavar="SIZE")
+    g.add_argument("--flash-limit", type=parse_size, metavar="SIZE")
+    g.add_argument("--no-inplace", action="store_true", help="never overwrite an input in place")
+    g.add_argument("--region", action="append", type=parse_region, default=[],
+                   metavar="NAME=SIZE", help="memory region, first = arena (repeatable)")
+    g.add_argument("--io", choices=["arena", "external"], default="arena")
+    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+
+
+def build_options(args):
+    from tinygen.codegen.cfmt import check_identifier
+    from tinygen.compiler import BuildOptions
+    try:
+        check_identifier(args.prefix, "--prefix")
+    except ValueError as exc:
+        raise TinygenError(str(exc)) from None
+    return BuildOptions(requant=args.requant, prefix=args.prefix,
+                        input_shapes=args.input_shape, planner=args.planner, order=args.order,
+                        align=args.align, arena_limit=args.arena_limit,
+                        flash_limit=args.flash_limit, inplace=not args.no_inplace,
+                        regions=args.region, io=args.io)
+
+
+def flags_text(args) -> str:
+    parts = [f"--requant {args.requant}", f"--planner {args.planner}", f"--order {args.order}",
+             f"--align {args.align}", f"--io {args.io}"]
+    if args.no_inplace:
+        parts.append("--no-inplace")
+    parts += [f"--region {n}={s}" for n, s in args.region]
+    parts += [f"--input-shape {s}" for s in args.input_shape]
+    return " ".join(parts)
+
+
+def make_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="tinygen", description="Quantized ONNX to static-memory C99 for "
+                "bare-metal microcontrollers.")
+    p.add_argument("--version", action="version", version=f"tinygen {__version__}")
+    sub = p.add_subparsers(dest="verb", required=True, parser_class=_Parser)
+    e = sub.add_parser("emit", help="write the C tree (model.c/model.h + kernels)")
+    e.add_argument("model")
+    e.add_argument("-o", "--output", required=True, metavar="OUTDIR")
+    e.add_argument("--force", action="store_true", help="replace an existing OUTDIR")
+    add_build_flags(e)
+    c = sub.add_parser("check", help="compile on the host, compare with the reference")
+    c.add_argument("model")
+    src = c.add_mutually_exclusive_group()
+    src.add_argument("--inputs", metavar="FILE.npz")
+    src.add_argument("--samples", type=int, default=100, metavar="N")
+    c.add_argument("--against-onnxruntime", action="store_true")
+    c.add_argument("--sanitize", action="store_true",
+                   help="build with AddressSanitizer and UBSan")
+    add_build_flags(c)
+    pl = sub.add_parser("plan", help="show the arena plan")
+    pl.add_argument("model")
+    pl.add_argument("--svg", metavar="FILE")
+    add_build_flags(pl)
+    em = sub.add_parser("emulate", help="build for Cortex-M and run under QEMU")
+    em.add_argument("model")
+    em.add_argument("--cpu", required=True,
+                    choices=["cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33"])
+    em.add_argument("--inputs", metavar="FILE.npz")
+    em.add_argument("--samples", type=int, default=4, metavar="N")
+    add_build_flags(em)
+    r = sub.add_parser("report", help="write an HTML report of memory and compute")
+    r.add_argument("model")
+    r.add_argument("-o", "--output", required=True, metavar="REPORT.html")
+    r.add_argument("--budget-ram", type=parse_size, metavar="SIZE")
+    r.add_argument("--budget-flash", type=parse_size, metavar="SIZE")
+    add_build_flags(r)
+    return p
+
+
+def _say(text: str) -> None:
+    print(text, file=sys.stderr)
+
+
+def cmd_emit(args) -> int:
+    from tinygen.codegen.emit import render_tree, write_tree
+    from tinygen.compiler import compile_model, summary
+    c = compile_model(args.model, build_options(args))
+    files = render_tree(c, flags_text(args))
+    names = write_tree(files, args.output, args.force)
+    info = summary(c)
+    info["files"] = names
+    info["const_bytes"] = c.const_bytes
+    if args.json:
+        print(json.dumps(info))
+    else:
+        _say(f"wrote {len(names)} files to {args.output}")
+        _say(format_summary(info, c))
+    return 0
+
+
+def format_summary(info: dict, c) -> str:
+    return (f"arena {info['arena_bytes']} B (lower bound {info['lower_bound_bytes']} B, "
+            f"no reuse {info['naive_bytes']} B), weights {info['weights_bytes']} B, "
+            f"flash constants {c.const_bytes} B, {info['macs']} MACs in {info['ops']} ops "
+            f"[planner {info['planner']}, order {info['order']}]")
+
+
+def cmd_check(args) -> int:
+    from tinygen.check import load_inputs, random_inputs, run_check
+    from tinygen.compiler import compile_model
+    c = compile_model(args.model, build_options(args))
+    if args.inputs:
+        samples = load_inputs(c.graph, args.inputs)
+    else:
+        if args.samples < 1:
+            raise TinygenError("--samples must be >= 1")
+        samples = random_inputs(c.graph, args.samples)
+    if args.sanitize:
+        from tinygen.sanitize import run_sanitized
+        res = run_sanitized(c, args.model, samples, flags_text(args), args.against_onnxruntime)
+    else:
+        res = run_check(c, args.model, samples, flags_text(args), args.against_onnxruntime)
+    if args.json:
+        print(json.dumps(res.as_json()))
+    else:
+        verdict = "bit-exact" if res.bit_exact else \
+            f"MISMATCH in {res.mismatched_elements} of {res.total_elements} elements"
+        _say(f"{args.model}: {res.samples} samples, C vs reference: {verdict}")
+        if res.onnxruntime is not None:
+            o = res.onnxruntime
+            _say(f"vs onnxruntime: max |diff| {o['max_abs_diff']} LSB, "
+                 f"{100 * o['equal_fraction']:.2f}% of elements equal")
+    return 0 if res.bit_exact else 1
+
+
+def cmd_plan(args) -> int:
+    from tinygen.compiler import compile_model, summary
+    from tinygen.report.plan_view import plan_svg, plan_table
+    c = compile_model(args.model, build_options(args))
+    info = summary(c)
+    if args.svg:
+        from pathlib import Path
+        try:
+            Path(args.svg).write_text(plan_svg(c))
+        except OSError as exc:
+            raise TinygenError(f"cannot write {args.svg}: {exc.strerror}") from None
+    if args.json:
+        print(json.dumps(info))
+    else:
+        _say(plan_table(c))
+    return 0
+
+
+def cmd_emulate(args) -> int:
+    from tinygen.target_check import run_emulate
+    info = run_emulate(args, build_options(args), flags_text(args))
+    if args.json:
+        print(json.dumps(info))
+    else:
+        _say(f"{args.model} on {info['cpu']}: bit_exact={info['bit_exact']}, flash "
+             f"{info['flash_bytes']} B, RAM {info['ram_bytes']} B, stack {info['stack_bytes']} "
+             f"B, {info['instructions']} instructions for {info['macs']} MACs")
+    return 0 if info["bit_exact"] else 1
+
+
+def cmd_report(args) -> int:
+    from tinygen.compiler import compile_model
+    from tinygen.report.html import write_report
+    c = compile_model(args.model, build_options(args))
+    write_report(c, args.output, args.budget_ram, args.budget_flash, flags_text(args))
+    _say(f"wrote {args.output}")
+    return 0
+
+
+VERBS = {"emit": cmd_emit, "check": cmd_check, "plan": cmd_plan, "emulate": cmd_emulate,
+         "report": cmd_report}
+
+
+def main(argv: list[str] | None = None) -> int:
+    try:
+        args = make_parser().parse_args(argv)
+        return VERBS[args.verb](args)
+    except TinygenError as exc:
+        print(f"tinygen: error: {exc.one_line()}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("tinygen: interrupted", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

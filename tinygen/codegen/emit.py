@@ -1,0 +1,221 @@
+"""Write the C tree for a compiled model: <prefix>.h/.c, the kernels it uses, build snippets.
+
+Identifiers in the C come from the prefix and op/tensor indices only; names from the ONNX
+file appear solely inside comments, escaped by `c_comment_text`. The tree is written to a
+temporary folder next to OUTDIR and renamed into place at the end, so a failure leaves no
+half-written output.
+"""
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import jinja2
+import numpy as np
+
+import tinygen
+from tinygen.codegen.cfmt import C_TYPES, ParamsWriter, c_array, c_comment_text, c_float
+from tinygen.compiler import Compiled
+from tinygen.errors import TinygenError
+from tinygen.kernels import KERNELS
+from tinygen.passes.layout import storage_data
+
+RUNTIME = Path(__file__).resolve().parent.parent.parent / "runtime_c"
+TEMPLATES = Path(__file__).resolve().parent / "templates"
+
+
+def _env() -> jinja2.Environment:
+    return jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
+                              trim_blocks=True, lstrip_blocks=True,
+                              undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
+
+
+class TreeWriter:
+    """Builds the template context for one compiled model."""
+
+    def __init__(self, c: Compiled, flags: str):
+        self.c = c
+        self.g = c.graph
+        self.plan = c.plan
+        self.P = c.options.prefix
+        self.G = self.P.upper()
+        self.flags = flags
+        self.pw = ParamsWriter(self.P)
+        self.const_names: dict[str, str] = {}
+        self.families: set[str] = set()
+
+    # -- pointers -----------------------------------------------------------------------
+    def ptr(self, name: str) -> str:
+        """C expression (uint8_t* or void*) for where tensor `name` lives."""
+        t = self.g.tensors[name]
+        if t.is_const:
+            return self.const_array(name)
+        buf, off = self.plan.offset_of(name)
+        if buf.external:
+            kind, idx = buf.external.split(":")
+            return f"{kind}s[{idx}]"
+        base = "a" if buf.region in (None, self.plan.regions[0].name) else \
+            f"{self.P}_region_{buf.region}.bytes"
+        return f"({base} + {off})" if off else base
+
+    def const_array(self, name: str) -> str:
+        if name not in self.const_names:
+            t = self.g.tensors[name]
+            cname = f"{self.P}_c{len(self.const_names)}"
+            data = storage_data(t).astype(np.int32 if t.dtype == "int32" else np.int8)
+            self.pw.decls.append(f"/* {c_comment_text(t.name)} [{'x'.join(map(str, t.shape))}]"
+                                 " */\n" + c_array(cname, data))
+            self.pw.const_bytes += data.nbytes
+            self.const_names[name] = cname
+        return self.const_names[name]
+
+    def typed(self, name: str, const: bool) -> str:
+        t = self.g.tensors[name]
+        if t.is_const:
+            return self.const_array(name)
+        ctype = C_TYPES[t.dtype]
+        return f"({'const ' if const else ''}{ctype} *){self.ptr(name)}"
+
+    # -- calls --------------------------------------------------------------------------
+    def op_lines(self, k: int) -> list[str]:
+        op = self.g.ops[k]
+        if op.kind == "copy":
+            t = self.g.tensors[op.outputs[0]]
+            return [f"memcpy({self.ptr(op.outputs[0])}, {self.ptr(op.inputs[0])}, {t.nbytes}u);"]
+        call = op.attrs["call"]
+        kern = KERNELS[call.func]
+        self.families.add(kern.family)
+        pname = self.pw.struct(kern.struct, f"{self.P}_op{k}", call.params)
+        if call.func == "tg_concat":
+            parts = ", ".join(self.typed(n, True) for n in call.args[:-1])
+            arr = f"{self.P}_parts{k}"
+            return [f"{{ const int8_t *const {arr}[{len(call.args) - 1}] = {{{parts}}};",
+                    f"  tg_concat(&{pname}, {arr}, {self.typed(call.args[-1], False)}); }}"]
+        args = [self.typed(n, True) if n else "NULL" for n in call.args[:-1]]
+        args.append(self.typed(call.args[-1], False))
+        return [f"{call.func}(&{pname}, {', '.join(args)});"]
+
+    def io_entries(self, ios, is_input: bool) -> list[dict]:
+        out = []
+        for io in ios:
+            t = self.g.tensors[io.name]
+            buf, _ = self.plan.offset_of(io.name)
+            dims = t.storage_shape()
+            q = io.quant
+            entry = {
+                "comment": c_comment_text(io.onnx_name, 60),
+                "ctype": C_TYPES[io.buffer_dtype],
+                "dims_comment": "x".join(map(str, dims)),
+                "size": t.size,
+                "bytes": t.nbytes,
+                "quant": q is not None and io.buffer_dtype != "int32",
+                "arena_expr": None if buf.external else f"(void *){self.ptr(io.name)}",
+            }
+            if entry["quant"]:
+                zp = q.scalar_zp() + (128 if io.buffer_dtype == "uint8" else 0)
+                entry["scale"] = c_float(q.scalar_scale())
+                entry["zp"] = str(zp)
+            out.append(entry)
+        return out
+
+    def flips(self, ios, kind: str) -> list[str]:
+        lines = []
+        for io in ios:
+            if io.buffer_dtype == "uint8":
+                t = self.g.tensors[io.name]
+                lines.append(f"{self.P}_flip_sign_bits({self.ptr(io.name)}, {t.size}u);")
+        return lines
+
+    def context(self) -> dict:
+        g, c = self.g, self.c
+        calls = []
+        for k in self.plan.order:
+            op = g.ops[k]
+            if op.kind == "view":
+                continue
+            where = c_comment_text(f"{op.onnx_op} '{op.name}'", 100)
+            calls.append({"index": len(calls), "op_index": k,
+                          "comment": f"{op.attrs['call'].func if 'call' in op.attrs else op.kind}"
+                                     f" <- {where}",
+                          "lines": self.op_lines(k)})
+        pro, epi = self.flips(g.inputs, "input"), self.flips(g.outputs, "output")
+        if c.options.io == "external":
+            # restore the caller's uint8 inputs (they were shifted in place)
+            epi = epi + pro
+        headers = ["tg_config.h", "tg_requant.h"] + sorted(f"tg_{f}.h" for f in self.families)
+        extra = [{"name": r.name, "upper": r.name.upper(), "bytes": r.used}
+                 for r in self.plan.regions[1:]]
+        return {
+            "P": self.P, "G": self.G, "version": tinygen.__version__,
+            "model_comment": c_comment_text(g.name, 80),
+            "source_comment": c_comment_text(os.path.basename(g.source_path), 80),
+            "sha256": g.source_sha256, "flags_comment": c_comment_text(self.flags, 200),
+            "arena_bytes": self.plan.regions[0].used, "lower_bound": self.plan.lower_bound,
+            "naive_bytes": self.plan.naive, "align": self.plan.align,
+            "const_bytes": self.pw.const_bytes, "macs": c.macs, "n_calls": len(calls),
+            "inputs": self.io_entries(g.inputs, True),
+            "outputs": self.io_entries(g.outputs, False),
+            "io_mode_comment": "--io " + c.options.io,
+            "decls": self.pw.decls, "calls": calls, "headers": headers,
+            "prologue": pro, "epilogue": epi, "flips": bool(pro or epi),
+            "extra_regions": extra, "float_mode": c.options.requant == "float",
+        }
+
+
+def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
+    files = [("tg_requant.h", RUNTIME / "include" / "tg_requant.h")]
+    for f in sorted(families):
+        files.append((f"tg_{f}.h", RUNTIME / "include" / f"tg_{f}.h"))
+        files.append((f"tg_{f}.c", RUNTIME / "src" / f"tg_{f}.c"))
+    return files
+
+
+def render_tree(c: Compiled, flags: str) -> dict[str, str]:
+    """All files of the tree as {name: text}, deterministic for the same input."""
+    w = TreeWriter(c, flags)
+    env = _env()
+    ctx = w.context()  # renders calls first so the constants/families are known
+    ctx["const_bytes"] = w.pw.const_bytes
+    files: dict[str, str] = {}
+    files[f"{w.P}.c"] = env.get_template("model.c.j2").render(**ctx)
+    files[f"{w.P}.h"] = env.get_template("model.h.j2").render(**ctx)
+    files["tg_config.h"] = env.get_template("tg_config.h.j2").render(**ctx)
+    for name, src in runtime_files(w.families):
+        files[name] = src.read_text()
+    sources = sorted(n for n in files if n.endswith(".c"))
+    sctx = dict(ctx, sources=sources)
+    files[f"{w.P}_sources.cmake"] = env.get_template("sources.cmake.j2").render(**sctx)
+    files[f"{w.P}_sources.mk"] = env.get_template("sources.mk.j2").render(**sctx)
+    c.const_bytes = w.pw.const_bytes
+    return files
+
+
+def write_tree(files: dict[str, str], out_dir: str, force: bool) -> list[str]:
+    """Write atomically: a sibling temp dir renamed over OUTDIR (existing one needs force)."""
+    out = Path(out_dir)
+    if out.exists() and not force:
+        if not out.is_dir() or any(out.iterdir()):
+            raise TinygenError(f"output folder '{out}' exists and is not empty "
+                               "(use --force to replace it)")
+    parent = out.parent if str(out.parent) else Path(".")
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=parent))
+    except OSError as exc:
+        raise TinygenError(f"cannot create output folder '{out}': {exc.strerror}") from None
+    try:
+        for name, text in files.items():
+            (tmp / name).write_text(text)
+        if out.exists():
+            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old.", dir=parent))
+            os.replace(out, old / "tree")
+            os.replace(tmp, out)
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(tmp, out)
+    except OSError as exc:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise TinygenError(f"cannot write output folder '{out}': {exc.strerror}") from None
+    return sorted(files)

@@ -1,0 +1,172 @@
+"""The pipeline, stage by stage: load -> passes -> schedule -> plan -> (emit).
+
+`compile_model` reads as the pipeline itself; each stage reads only what the one before it
+made. The result carries every figure the CLI reports.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from tinygen.errors import TinygenError
+from tinygen.frontend import load_graph
+from tinygen.ir import Graph
+from tinygen.passes.cleanup import drop_dead_ops, isolate_io
+from tinygen.passes.fuse import fuse_activation
+from tinygen.passes.layout import assign_layout
+from tinygen.passes.overflow import check_accumulators
+from tinygen.passes.params import lower_params
+from tinygen.plan import MemoryPlan, build_buffers, plan_memory, verify_plan
+from tinygen.plan.lifetimes import lower_bound
+from tinygen.schedule import order_ops
+
+
+@dataclass
+class BuildOptions:
+    """The build flags every code-building verb takes (docs/cli.md)."""
+
+    requant: str = "fixed"
+    prefix: str = "model"
+    input_shapes: list[str] = field(default_factory=list)
+    planner: str = "greedy-size"
+    order: str = "given"
+    align: int = 8
+    arena_limit: int | None = None
+    flash_limit: int | None = None
+    inplace: bool = True
+    regions: list[tuple[str, int]] = field(default_factory=list)
+    io: str = "arena"
+
+
+@dataclass
+class Compiled:
+    graph: Graph
+    plan: MemoryPlan
+    options: BuildOptions
+    macs: int
+    weights_bytes: int
+    per_op_macs: list[int]
+    const_bytes: int = 0  # all flash constants of the emitted tree (set by codegen)
+
+
+def count_macs(graph: Graph) -> list[int]:
+    """Multiply-accumulates per op (conv and fully connected; other ops count 0)."""
+    out = []
+    for op in graph.ops:
+        call = op.attrs.get("call")
+        p = call.params if call else None
+        if op.kind == "conv":
+            out.append(p.n * p.out_h * p.out_w * p.out_c * p.k_h * p.k_w * (p.in_c // p.groups))
+        elif op.kind == "fc":
+            out.append(p.rows * p.out * p.depth)
+        else:
+            out.append(0)
+    return out
+
+
+def constant_bytes(graph: Graph) -> int:
+    """Bytes of constant tensors the ops read (weights, biases); tables and params extra."""
+    used = {n for op in graph.ops for n in op.inputs}
+    return sum(t.nbytes for n, t in graph.tensors.items() if t.is_const and n in used)
+
+
+def compile_model(path: str, opts: BuildOptions) -> Compiled:
+    graph = load_graph(path, opts.input_shapes)
+    graph = drop_dead_ops(graph)
+    graph = fuse_activation(graph)
+    graph = assign_layout(graph)
+    graph = isolate_io(graph)
+    graph = lower_params(graph, opts.requant)
+    graph = check_accumulators(graph)
+    plan = plan_arena(graph, opts)
+    macs = count_macs(graph)
+    weights = constant_bytes(graph)
+    if opts.flash_limit is not None and weights > opts.flash_limit:
+        raise TinygenError(f"weights need {weights} bytes of flash, over --flash-limit "
+                           f"{opts.flash_limit}", file=path)
+    return Compiled(graph, plan, opts, int(sum(macs)), weights, macs)
+
+
+def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
+    """Schedule, build buffers and place them; the plan is verified before it is returned."""
+    if opts.align < 4 or opts.align & (opts.align - 1):
+        raise TinygenError(f"--align {opts.align} must be a power of two >= 4")
+    probe, owner = build_buffers(graph, list(range(len(graph.ops))), opts.inplace, opts.io)
+    order = order_ops(graph, opts.order, lambda t: owner.get(t),
+                      lambda b: probe[b].size if b in probe and probe[b].external is None
+                      else 0)
+    buffers, owner = build_buffers(graph, order, opts.inplace, opts.io)
+    try:
+        plan = plan_memory(buffers, owner, order, opts.planner, opts.align, opts.regions)
+    except MemoryError as exc:
+        raise TinygenError(str(exc), file=graph.source_path) from None
+    plan.lower_bound = lower_bound(buffers, len(order))
+    plan.naive = sum((b.size + opts.align - 1) // opts.align * opts.align
+                     for b in buffers.values() if b.external is None)
+    problems = verify_plan(plan)
+    if problems:
+        raise TinygenError("internal error: memory plan failed verification: " + problems[0],
+                           file=graph.source_path)
+    if opts.arena_limit is not None and plan.arena_bytes > opts.arena_limit:
+        big = max((b for b in buffers.values() if b.external is None), key=lambda b: b.size)
+        raise TinygenError(f"arena needs {plan.arena_bytes} bytes, over --arena-limit "
+                           f"{opts.arena_limit} (largest buffer '{big.name}', {big.size} B)",
+                           file=graph.source_path)
+    return plan
+
+
+def summary(c: Compiled) -> dict:
+    """The figures `emit --json` / `plan --json` print (DESIGN.md section 4 keys)."""
+    return {
+        "arena_bytes": c.plan.arena_bytes,
+        "lower_bound_bytes": c.plan.lower_bound,
+        "naive_bytes": c.plan.naive,
+        "weights_bytes": c.weights_bytes,
+        "macs": c.macs,
+        "ops": sum(1 for op in c.graph.ops if op.kind != "view"),
+        "planner": c.plan.planner,
+        "order": c.options.order,
+    }
+
+
+def storage_inputs(graph: Graph, floats: list[np.ndarray]) -> list[np.ndarray]:
+    """Quantize float inputs (ONNX layout) into the C buffers' int8-domain storage form."""
+    from tinygen.ir import storage_perm
+    out = []
+    for io, x in zip(graph.inputs, floats, strict=True):
+        t = graph.tensors[io.name]
+        x = np.asarray(x, dtype=np.float32).reshape(t.shape)
+        if io.onnx_dtype == "float32":
+            q = np.rint(x / np.float32(t.quant.scalar_scale())) + t.quant.scalar_zp()
+            q = np.clip(q, -128, 127).astype(np.int8)
+        else:
+            q = x.astype(np.int64)
+            q = (q - 128 if io.buffer_dtype == "uint8" else q).astype(np.int8)
+        out.append(np.ascontiguousarray(np.transpose(q, storage_perm(len(t.shape), t.layout))))
+    return out
+
+
+def logical_outputs(graph: Graph, outs: list[np.ndarray]) -> list[np.ndarray]:
+    """Storage-order int8-domain outputs back to ONNX layout and their ONNX integer type."""
+    from tinygen.ir import storage_perm
+    res = []
+    for io, y in zip(graph.outputs, outs, strict=True):
+        t = graph.tensors[io.name]
+        perm = storage_perm(len(t.shape), t.layout)
+        y = np.transpose(np.asarray(y).reshape(t.storage_shape()), np.argsort(perm))
+        if io.buffer_dtype == "uint8":
+            y = (y.astype(np.int16) + 128).astype(np.uint8)
+        res.append(np.ascontiguousarray(y))
+    return res
+
+
+def dequantize_outputs(graph: Graph, outs: list[np.ndarray]) -> list[np.ndarray]:
+    res = []
+    for io, y in zip(graph.outputs, outs, strict=True):
+        if io.onnx_dtype == "float32" and io.quant is not None:
+            zp = io.quant.scalar_zp() + (128 if io.buffer_dtype == "uint8" else 0)
+            res.append((y.astype(np.float32) - zp) * np.float32(io.quant.scalar_scale()))
+        else:
+            res.append(y)
+    return res

@@ -1,0 +1,50 @@
+"""The kernel table: each C kernel beside its numpy twin, and how to call both.
+
+A `KernelCall` (passes/params.py) names a C function; this table says which runtime file
+family it lives in, its params struct type and the reference function that computes the
+same thing. Adding an op means adding one row here (see DEVELOPERS.md).
+"""
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from tinygen.reference import conv as ref_conv
+from tinygen.reference import fc as ref_fc
+
+
+@dataclass(frozen=True)
+class Kernel:
+    family: str  # runtime_c/src/tg_<family>.c and include/tg_<family>.h
+    struct: str | None  # C params struct type
+    reference: Callable  # reference(params, *arrays) -> output array
+    input_shapes: Callable | None = None  # params -> shapes the reference wants per input
+
+
+def _conv_ref(fn):
+    def run(p, x, w, bias):
+        x = x.reshape(p.n, p.in_h, p.in_w, p.in_c)
+        w = w.reshape(p.out_c, p.k_h, p.k_w, p.in_c // p.groups)
+        return fn(x, w, bias, p)
+    return run
+
+
+def _fc_ref(p, x, w, bias):
+    return ref_fc.fc(x.reshape(p.rows, p.depth), w, bias, p)
+
+
+KERNELS: dict[str, Kernel] = {
+    "tg_conv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.conv)),
+    "tg_dwconv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.dwconv)),
+    "tg_fc": Kernel("fc", "tg_fc_params_t", _fc_ref),
+}
+
+
+def register(func: str, kernel: Kernel) -> None:
+    KERNELS[func] = kernel
+
+
+def as_int8(a) -> np.ndarray:
+    return np.asarray(a).astype(np.int8)

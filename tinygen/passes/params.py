@@ -1,0 +1,123 @@
+"""Turn each op's quantization into the exact parameters its kernel takes.
+
+Sets op.attrs["call"] = KernelCall(func, family, params, args): `params` is the reference
+dataclass that mirrors the C params struct field for field, so the numpy reference and the
+emitted C read the very same numbers. Requantization multipliers are computed here, once,
+for the chosen mode ("fixed": Q31 multiplier + shift; "float": float32 scale).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from tinygen.errors import TinygenError
+from tinygen.ir import Graph, Op, Tensor, storage_perm
+from tinygen.reference.conv import ConvParams
+from tinygen.reference.fc import FcParams
+from tinygen.reference.requant import Requant, make_requant, quantize_multiplier
+
+
+@dataclass
+class KernelCall:
+    func: str  # C function, e.g. "tg_conv"
+    family: str  # runtime file family: tg_<family>.c / tg_<family>.h
+    params: object  # reference params dataclass mirroring the C struct (None: no params)
+    args: list[str]  # tensor names after the params pointer, output last
+
+
+def _f32(x) -> np.float32:
+    return np.float32(x)
+
+
+def channel_requant(x: Tensor, w: Tensor, y: Tensor, channels: int, act, mode: str) -> Requant:
+    """Requant of a conv/fc output: M[c] = s_x * s_w[c] / s_y.
+
+    Float mode uses float32((float32(s_x) * float32(s_w[c])) / float32(s_y)), the order
+    onnxruntime's integer Conv/MatMul kernels use, so outputs can agree bit for bit.
+    """
+    sx = _f32(x.quant.scalar_scale())
+    sw = np.broadcast_to(np.asarray(w.quant.scale, np.float32), (channels,))
+    sy = _f32(y.quant.scalar_scale())
+    real = sx.astype(np.float64) * sw.astype(np.float64) / np.float64(sy)
+    float_scales = (sx * sw).astype(np.float32) / sy
+    return make_requant(real, y.quant.scalar_zp(), act[0], act[1], mode, float_scales)
+
+
+def _w_zp(w: Tensor, channels: int):
+    zp = np.broadcast_to(np.asarray(w.quant.zero_point, np.int32), (channels,))
+    return None if not np.any(zp) else np.array(zp, dtype=np.int32)
+
+
+def _conv(graph: Graph, op: Op, mode: str) -> KernelCall:
+    t = graph.tensors
+    x, w, b, y = t[op.inputs[0]], t[op.inputs[1]], t[op.inputs[2]], t[op.outputs[0]]
+    xs, ys = x.storage_shape(), y.storage_shape()
+    if len(xs) == 3:  # 1-D: [n, w, c] is the h = 1 case
+        xs, ys = (xs[0], 1, xs[1], xs[2]), (ys[0], 1, ys[1], ys[2])
+    kh, kw = op.attrs["kernel"]
+    (sh, sw), (dh, dw) = op.attrs["strides"], op.attrs["dilations"]
+    pt, pl = op.attrs["pads"][0], op.attrs["pads"][1]
+    cout = y.shape[1]
+    rq = None if y.dtype == "int32" else channel_requant(x, w, y, cout, op.attrs["act"], mode)
+    p = ConvParams(n=xs[0], in_h=xs[1], in_w=xs[2], in_c=xs[3], out_h=ys[1], out_w=ys[2],
+                   out_c=cout, k_h=kh, k_w=kw, stride_h=sh, stride_w=sw, dil_h=dh, dil_w=dw,
+                   pad_top=pt, pad_left=pl, groups=op.attrs["group"],
+                   in_zp=x.quant.scalar_zp(), w_zp=_w_zp(w, cout), rq=rq)
+    depthwise = p.groups == p.in_c and p.groups > 1
+    return KernelCall("tg_dwconv" if depthwise else "tg_conv", "conv", p,
+                      [x.name, w.name, b.name, y.name])
+
+
+def _fc(graph: Graph, op: Op, mode: str) -> KernelCall:
+    t = graph.tensors
+    x, w, y = t[op.inputs[0]], t[op.inputs[1]], t[op.outputs[0]]
+    b = t[op.inputs[2]] if len(op.inputs) > 2 else None
+    depth, out = x.shape[-1], y.shape[-1]
+    rows = x.size // depth
+    if w.is_const:
+        so, sk = depth, 1  # [out][depth]
+    else:
+        so, sk = 1, out  # run-time [depth][out]
+    rq = None if y.dtype == "int32" else channel_requant(x, w, y, out, op.attrs["act"], mode)
+    p = FcParams(rows=rows, depth=depth, out=out, w_stride_o=so, w_stride_k=sk,
+                 x_zp=x.quant.scalar_zp(), w_zp=_w_zp(w, out), rq=rq)
+    return KernelCall("tg_fc", "fc", p, [x.name, w.name, b.name if b else "", y.name])
+
+
+def logical_strides(t: Tensor, out_rank: int) -> list[int]:
+    """Element strides of t for each logical axis of a broadcast output of `out_rank`."""
+    shape = t.shape
+    st = t.storage_shape()
+    perm = storage_perm(len(shape), t.layout)
+    storage_stride = [1] * len(st)
+    for i in range(len(st) - 2, -1, -1):
+        storage_stride[i] = storage_stride[i + 1] * st[i + 1]
+    per_logical = [0] * len(shape)
+    for s_axis, l_axis in enumerate(perm):
+        per_logical[l_axis] = storage_stride[s_axis] if shape[l_axis] != 1 else 0
+    return [0] * (out_rank - len(shape)) + per_logical
+
+
+LOWERINGS = {"conv": _conv, "fc": _fc}
+
+
+def lower_params(graph: Graph, mode: str) -> Graph:
+    """Attach a KernelCall to every op that runs a kernel ('view' ops run nothing).
+
+    Needs: assign_layout. Leaves: op.attrs["call"] on every non-view op.
+    """
+    if mode not in ("fixed", "float"):
+        raise TinygenError(f"--requant must be fixed or float, not '{mode}'")
+    for op in graph.ops:
+        if op.kind == "view":
+            continue
+        try:
+            op.attrs["call"] = LOWERINGS[op.kind](graph, op, mode)
+        except ValueError as exc:  # e.g. a multiplier out of range
+            raise TinygenError(str(exc), file=graph.source_path, node=op.name,
+                               op=op.onnx_op) from None
+    return graph
+
+
+__all__ = ["lower_params", "KernelCall", "quantize_multiplier", "logical_strides"]

@@ -1,0 +1,43 @@
+"""Run the planned IR with the numpy reference kernels (the oracle for the emitted C).
+
+Inputs and outputs are in the C buffers' form: storage order, int8 domain for activations
+(uint8 I/O values shifted by -128), int32 where the tensor is int32.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from tinygen.ir import Graph
+from tinygen.kernels import KERNELS
+from tinygen.passes.layout import storage_data
+
+
+def run_reference(graph: Graph, inputs: list[np.ndarray], order: list[int] | None = None
+                  ) -> list[np.ndarray]:
+    """Evaluate the graph; `inputs` are storage-order arrays, one per graph input."""
+    env: dict[str, np.ndarray] = {}
+    for io, arr in zip(graph.inputs, inputs, strict=True):
+        t = graph.tensors[io.name]
+        env[io.name] = np.asarray(arr).reshape(t.storage_shape()).astype(t.dtype)
+
+    def get(name: str) -> np.ndarray | None:
+        if not name:
+            return None
+        if name not in env:
+            t = graph.tensors[name]
+            env[name] = storage_data(t)
+        return env[name]
+
+    for k in order if order is not None else range(len(graph.ops)):
+        op = graph.ops[k]
+        out = graph.tensors[op.outputs[0]]
+        if op.kind == "view":
+            y = get(op.inputs[0])
+        elif op.kind == "copy":
+            y = get(op.inputs[0]).copy()
+        else:
+            call = op.attrs["call"]
+            kern = KERNELS[call.func]
+            y = kern.reference(call.params, *[get(n) for n in call.args[:-1]])
+        env[out.name] = np.asarray(y).reshape(out.storage_shape()).astype(out.dtype)
+    return [env[io.name] for io in graph.outputs]
