@@ -8,10 +8,19 @@ import numpy as np
 import pytest
 
 from tests.runtime_c.kernel_lib import (
+    CORTEX_M3,
+    CORTEX_M4,
     REQUANT_CDEF,
     Marshal,
+    build_cortex_m,
+    c_array,
+    c_optional_array,
+    c_requant,
+    cortex_m_tools_available,
+    disassembly,
     kernel_lib,
     pick_zero_point,
+    run_qemu,
     to_int8_domain,
 )
 from tinygen.reference.conv import (
@@ -393,3 +402,67 @@ def test_float_requant_matches_onnxruntime_qlinearconv():
         matched += int((ours == theirs).sum())
         total += ours.size
     assert matched == total, f"{matched}/{total} outputs match onnxruntime QLinearConv"
+
+
+# --- the same kernels on Cortex-M under QEMU (M4: DSP path, M3: portable path) --------------
+
+
+def dsp_tail_case(seed: int, in_c: int):
+    """3x3 conv with long contiguous channel runs, lengths not a multiple of four."""
+    rng = np.random.default_rng(100 + seed)
+    p = ConvParams(n=1, in_h=4, in_w=5, in_c=in_c, out_h=4, out_w=5, out_c=3, k_h=3, k_w=3,
+                   pad_top=1, pad_left=1, in_zp=int(rng.integers(-128, 128)),
+                   w_zp=rng.integers(-128, 128, size=3).astype(np.int32))
+    x = rng.integers(-128, 128, size=(1, 4, 5, in_c), dtype=np.int8)
+    w = rng.integers(-128, 128, size=(3, 3, 3, in_c), dtype=np.int8)
+    bias = rng.integers(-1000, 1000, size=3, dtype=np.int32)
+    return p, x, w, bias
+
+
+def conv_case_c(tag: str, p: ConvParams, x, w, bias) -> tuple[str, list[str]]:
+    """C definitions of one case and the kernel calls that dump its outputs."""
+    w_zp_def, w_zp_expr = c_optional_array(f"{tag}_w_zp", "int32_t", p.w_zp)
+    rq_def, rq_expr = c_requant(f"{tag}_rq", p.rq)
+    fields = ", ".join(str(int(getattr(p, f))) for f in SCALAR_FIELDS)
+    defs = (c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_w", "int8_t", w)
+            + c_array(f"{tag}_bias", "int32_t", bias) + w_zp_def + rq_def
+            + f"static const tg_conv_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}}};\n")
+    out_bytes = p.n * p.out_h * p.out_w * p.out_c * (1 if p.rq is not None else 4)
+    kernels = ["tg_conv"] + (["tg_dwconv"] if p.groups == p.in_c else [])
+    calls = [f"{k}(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y); "
+             f"tg_test_dump(\"{tag}_{k}\", y, {out_bytes});" for k in kernels]
+    return defs, calls
+
+
+def target_cases():
+    cases = [random_case(seed) for seed in range(0, 48, 2)]
+    cases += [dsp_tail_case(i, in_c) for i, in_c in enumerate((5, 13, 31))]
+    for p, x, w, bias in cases[-3:]:
+        cases.append((replace(p, w_zp=None), x, w, bias))
+    return cases
+
+
+@pytest.mark.target
+@pytest.mark.skipif(not cortex_m_tools_available(), reason="needs arm-none-eabi-gcc and QEMU")
+@pytest.mark.parametrize("core", [CORTEX_M4, CORTEX_M3], ids=["cortex-m4-dsp", "cortex-m3"])
+def test_conv_on_cortex_m_matches_reference(core, tmp_path):
+    defs, calls, expected = [], [], {}
+    for i, (p, x, w, bias) in enumerate(target_cases()):
+        case_defs, case_calls = conv_case_c(f"c{i}", p, x, w, bias)
+        defs.append(case_defs)
+        calls += case_calls
+        y = conv(x, w, bias, p)
+        expected[f"c{i}_tg_conv"] = y.tobytes()
+        if p.groups == p.in_c:
+            expected[f"c{i}_tg_dwconv"] = y.tobytes()
+    main_c = ('#include <stddef.h>\n#include "tg_conv.h"\n'
+              "void tg_test_dump(const char *tag, const void *data, int32_t bytes);\n"
+              + "".join(defs) + "int main(void)\n{\n    static int32_t y[4096];\n    "
+              + "\n    ".join(calls) + "\n    return 0;\n}\n")
+    elf = build_cortex_m(["tg_conv.c"], main_c, core, tmp_path)
+    # The M4 build must really take the SMLAD path, the M3 build must not.
+    assert ("smlad" in disassembly(elf)) == (core is CORTEX_M4)
+    dumps = run_qemu(elf, core)
+    assert dumps.keys() == expected.keys()
+    for tag, want in expected.items():
+        assert dumps[tag] == want, tag

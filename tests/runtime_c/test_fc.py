@@ -6,10 +6,19 @@ import numpy as np
 import pytest
 
 from tests.runtime_c.kernel_lib import (
+    CORTEX_M3,
+    CORTEX_M4,
     REQUANT_CDEF,
     Marshal,
+    build_cortex_m,
+    c_array,
+    c_optional_array,
+    c_requant,
+    cortex_m_tools_available,
+    disassembly,
     kernel_lib,
     pick_zero_point,
+    run_qemu,
     to_int8_domain,
 )
 from tinygen.reference.fc import FcParams, fc, fc_accumulators, gather_weights
@@ -229,3 +238,45 @@ def test_float_requant_matches_onnxruntime_qlinearmatmul():
         matched += int((ours == theirs).sum())
         total += ours.size
     assert matched == total, f"{matched}/{total} outputs match onnxruntime QLinearMatMul"
+
+
+# --- the same kernel on Cortex-M under QEMU (M4: DSP path, M3: portable path) ---------------
+
+
+def fc_case_c(tag: str, p: FcParams, x, w, bias) -> tuple[str, str]:
+    """C definitions of one case and the kernel call that dumps its output."""
+    w_zp_def, w_zp_expr = c_optional_array(f"{tag}_w_zp", "int32_t", p.w_zp)
+    bias_def, bias_expr = c_optional_array(f"{tag}_bias", "int32_t", bias)
+    rq_def, rq_expr = c_requant(f"{tag}_rq", p.rq)
+    fields = ", ".join(str(int(getattr(p, f))) for f in SCALAR_FIELDS)
+    defs = (c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_w", "int8_t", w) + bias_def
+            + w_zp_def + rq_def
+            + f"static const tg_fc_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}}};\n")
+    out_bytes = p.rows * p.out * (1 if p.rq is not None else 4)
+    call = (f"tg_fc(&{tag}_p, {tag}_x, {tag}_w, {bias_expr}, y); "
+            f"tg_test_dump(\"{tag}\", y, {out_bytes});")
+    return defs, call
+
+
+@pytest.mark.target
+@pytest.mark.skipif(not cortex_m_tools_available(), reason="needs arm-none-eabi-gcc and QEMU")
+@pytest.mark.parametrize("core", [CORTEX_M4, CORTEX_M3], ids=["cortex-m4-dsp", "cortex-m3"])
+def test_fc_on_cortex_m_matches_reference(core, tmp_path):
+    defs, calls, expected = [], [], {}
+    for seed in range(0, 48, 2):
+        p, x, w, bias = random_case(seed)
+        case_defs, call = fc_case_c(f"f{seed}", p, x, w, bias)
+        defs.append(case_defs)
+        calls.append(call)
+        expected[f"f{seed}"] = fc(x, w, bias, p).tobytes()
+    main_c = ('#include <stddef.h>\n#include "tg_fc.h"\n'
+              "void tg_test_dump(const char *tag, const void *data, int32_t bytes);\n"
+              + "".join(defs) + "int main(void)\n{\n    static int32_t y[4096];\n    "
+              + "\n    ".join(calls) + "\n    return 0;\n}\n")
+    elf = build_cortex_m(["tg_fc.c"], main_c, core, tmp_path)
+    # The M4 build must really take the SMLAD path, the M3 build must not.
+    assert ("smlad" in disassembly(elf)) == (core is CORTEX_M4)
+    dumps = run_qemu(elf, core)
+    assert dumps.keys() == expected.keys()
+    for tag, want in expected.items():
+        assert dumps[tag] == want, tag
