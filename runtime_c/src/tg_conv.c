@@ -6,6 +6,8 @@
  * are far below 2^31 elements).
  * The padding bounds are worked out once per output position (the valid ky/kx range), so the
  * tap loops never test for padding; the innermost loop runs over contiguous input channels.
+ * Cores with the DSP extension (Cortex-M4/M7/M33...) take the channel dot product four
+ * int8 pairs at a time with the ACLE __sxtab16/__smlad intrinsics.
  */
 #include "tg_conv.h"
 

@@ -4,7 +4,8 @@
  * and the compiler only emits a layer whose |bias| + depth*255*255 fits in int32.
  * Contiguous weights (w_stride_k == 1, the constant [out][depth] layout) run one dot product
  * per output; any other stride (the run-time [depth][out] operand) accumulates a block of
- * outputs at once, walking each weight row along w_stride_o.
+ * outputs at once, walking each weight row along w_stride_o. The dot product has the same
+ * DSP-extension path as tg_conv.c (kept private to each file: no shared internal header).
  */
 #include "tg_fc.h"
 
