@@ -13,6 +13,8 @@ import numpy as np
 
 from tinygen.reference import conv as ref_conv
 from tinygen.reference import fc as ref_fc
+from tinygen.reference import lut as ref_lut
+from tinygen.reference import shape as ref_shape
 
 
 @dataclass(frozen=True)
@@ -39,6 +41,11 @@ KERNELS: dict[str, Kernel] = {
     "tg_conv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.conv)),
     "tg_dwconv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.dwconv)),
     "tg_fc": Kernel("fc", "tg_fc_params_t", _fc_ref),
+    "tg_lut": Kernel("lut", None, lambda p, x: ref_lut.lut(p.table, x)),
+    "tg_concat": Kernel("shape", "tg_concat_params_t",
+                        lambda p, *parts: ref_shape.concat(p, list(parts))),
+    "tg_transpose": Kernel("shape", "tg_transpose_params_t", ref_shape.transpose),
+    "tg_pad": Kernel("shape", "tg_pad_params_t", ref_shape.pad),
 }
 
 

@@ -97,6 +97,8 @@ class ParamsWriter:
     def _init(self, name: str, params) -> str:
         parts = []
         for f in dataclasses.fields(params):
+            if not f.init:  # derived fields exist only on the Python side
+                continue
             v = getattr(params, f.name)
             parts.append(f".{f.name} = {self._value(f'{name}_{f.name}', v)}")
         return "{\n    " + ",\n    ".join(parts) + "\n}"

@@ -87,6 +87,12 @@ class TreeWriter:
         call = op.attrs["call"]
         kern = KERNELS[call.func]
         self.families.add(kern.family)
+        if call.func == "tg_lut":
+            tname = f"{self.P}_table{k}"
+            self.pw.decls.append(c_array(tname, call.params.table))
+            self.pw.const_bytes += 256
+            return [f"tg_lut({tname}, {self.typed(call.args[0], True)}, "
+                    f"{self.typed(call.args[1], False)}, {call.params.count});"]
         pname = self.pw.struct(kern.struct, f"{self.P}_op{k}", call.params)
         if call.func == "tg_concat":
             parts = ", ".join(self.typed(n, True) for n in call.args[:-1])

@@ -99,7 +99,63 @@ def logical_strides(t: Tensor, out_rank: int) -> list[int]:
     return [0] * (out_rank - len(shape)) + per_logical
 
 
-LOWERINGS = {"conv": _conv, "fc": _fc}
+@dataclass
+class LutParams:
+    """tg_lut takes no struct: (table, x, y, count)."""
+
+    table: np.ndarray
+    count: int
+
+
+def _lut(graph: Graph, op: Op, mode: str) -> KernelCall:
+    from tinygen.reference.lut import build_table
+    t = graph.tensors
+    x, y = t[op.inputs[0]], t[op.outputs[0]]
+    table = build_table(op.attrs["fn"], x.quant.scalar_scale(), x.quant.scalar_zp(),
+                        y.quant.scalar_scale(), y.quant.scalar_zp(),
+                        **op.attrs.get("fn_args", {}))
+    return KernelCall("tg_lut", "lut", LutParams(table, x.size), [x.name, y.name])
+
+
+def _concat(graph: Graph, op: Op, mode: str) -> KernelCall:
+    from tinygen.reference.shape import concat_params, concat_tables
+    t = graph.tensors
+    parts = [t[n] for n in op.inputs]
+    y = t[op.outputs[0]]
+    tables = concat_tables([(p.quant.scalar_scale(), p.quant.scalar_zp()) for p in parts],
+                           (y.quant.scalar_scale(), y.quant.scalar_zp()))
+    p = concat_params([p.storage_shape() for p in parts], op.attrs["storage_axis"], tables)
+    p.part_inner = np.asarray(p.part_inner, dtype=np.int32)
+    return KernelCall("tg_concat", "shape", p, [*op.inputs, y.name])
+
+
+def _transpose(graph: Graph, op: Op, mode: str) -> KernelCall:
+    from tinygen.reference.shape import TransposeParams
+    t = graph.tensors
+    x, y = t[op.inputs[0]], t[op.outputs[0]]
+    xs = list(x.storage_shape())
+    perm = list(op.attrs["storage_perm"])
+    p = TransposeParams(len(xs), xs + [1] * (6 - len(xs)), perm + list(range(len(perm), 6)))
+    return KernelCall("tg_transpose", "shape", p, [x.name, y.name])
+
+
+def _pad(graph: Graph, op: Op, mode: str) -> KernelCall:
+    from tinygen.reference.shape import PadParams
+    t = graph.tensors
+    x, y = t[op.inputs[0]], t[op.outputs[0]]
+    rank = len(x.shape)
+    perm = storage_perm(rank, x.layout)
+    pads = op.attrs["pads"]
+    before = [pads[a] for a in perm]
+    after = [pads[a + rank] for a in perm]
+    fill = [0] * (6 - rank)
+    p = PadParams(rank, list(x.storage_shape()) + [1] * (6 - rank), before + fill,
+                  after + fill, int(op.attrs["value"]))
+    return KernelCall("tg_pad", "shape", p, [x.name, y.name])
+
+
+LOWERINGS = {"conv": _conv, "fc": _fc, "lut": _lut, "concat": _concat,
+             "transpose": _transpose, "pad": _pad}
 
 
 def lower_params(graph: Graph, mode: str) -> Graph:
@@ -110,7 +166,7 @@ def lower_params(graph: Graph, mode: str) -> Graph:
     if mode not in ("fixed", "float"):
         raise TinygenError(f"--requant must be fixed or float, not '{mode}'")
     for op in graph.ops:
-        if op.kind == "view":
+        if op.kind in ("view", "copy"):
             continue
         try:
             op.attrs["call"] = LOWERINGS[op.kind](graph, op, mode)
