@@ -38,6 +38,16 @@ def run_reference(graph: Graph, inputs: list[np.ndarray], order: list[int] | Non
         else:
             call = op.attrs["call"]
             kern = KERNELS[call.func]
-            y = kern.reference(call.params, *[get(n) for n in call.args[:-1]])
+            args = [get(n) for n in call.args[:-1]]
+            if call.batch > 1:
+                parts = []
+                for i in range(call.batch):
+                    sliced = [a if a is None or st == 0 else
+                              a.reshape(-1)[i * st:(i + 1) * st]
+                              for a, st in zip(args, call.batch_step, strict=False)]
+                    parts.append(np.asarray(kern.reference(call.params, *sliced)).reshape(-1))
+                y = np.concatenate(parts)
+            else:
+                y = kern.reference(call.params, *args)
         env[out.name] = np.asarray(y).reshape(out.storage_shape()).astype(out.dtype)
     return [env[io.name] for io in graph.outputs]

@@ -101,6 +101,11 @@ class TreeWriter:
                     f"  tg_concat(&{pname}, {arr}, {self.typed(call.args[-1], False)}); }}"]
         args = [self.typed(n, True) if n else "NULL" for n in call.args[:-1]]
         args.append(self.typed(call.args[-1], False))
+        if call.batch > 1:  # the same call on consecutive slices
+            args = [f"{a} + {st} * b" if st and a != "NULL" else a
+                    for a, st in zip(args, call.batch_step, strict=True)]
+            return [f"{{ int32_t b; for (b = 0; b < {call.batch}; ++b) {{",
+                    f"    {call.func}(&{pname}, {', '.join(args)});", "} }"]
         return [f"{call.func}(&{pname}, {', '.join(args)});"]
 
     def io_entries(self, ios, is_input: bool) -> list[dict]:
@@ -123,6 +128,8 @@ class TreeWriter:
                 zp = q.scalar_zp() + (128 if io.buffer_dtype == "uint8" else 0)
                 entry["scale"] = c_float(q.scalar_scale())
                 entry["zp"] = str(zp)
+                entry["lo"], entry["hi"] = (0, 255) if io.buffer_dtype == "uint8" else \
+                    (-128, 127)
             out.append(entry)
         return out
 

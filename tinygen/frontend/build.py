@@ -57,7 +57,10 @@ class Builder:
         return t
 
     def quant(self, scale, zero_point, src_dtype, axis: int | None = None) -> QuantParams:
-        scale = np.asarray(scale, dtype=np.float32)
+        if np.asarray(scale).dtype not in (np.float32, np.float16):
+            raise self.error(f"scale of type {np.asarray(scale).dtype} is not supported "
+                             "(float32 or float16)")
+        scale = np.asarray(scale).astype(np.float32)  # float16 -> float32 is exact
         zp = np.asarray(zero_point if zero_point is not None else 0)
         if zp.dtype.kind not in "iu":
             raise self.error(f"zero point has dtype {zp.dtype}, expected an integer type")

@@ -90,20 +90,34 @@ def emit_conv(b: Builder, out_name: str, x: Tensor, w: Tensor, bias: np.ndarray,
 
 def emit_fc(b: Builder, out_name: str, x: Tensor, w: Tensor, bias: np.ndarray | None,
             y_q: QuantParams | None, act: tuple[int, int], w_layout: str) -> Tensor:
-    """MatMul/Gemm: y[..., n] = x[..., k] . w; w_layout 'nk' ([N,K]) or 'kn' ([K,N])."""
+    """MatMul/Gemm: y[..., n] = x[..., k] . w; w_layout 'nk' ([N,K]) or 'kn' ([K,N]).
+
+    A constant rank-3 right operand [B, K, N] with x [B, M, K] is a batch of B products.
+    """
     _need_per_tensor(b, x, "input")
-    if len(w.shape) != 2:
-        raise b.error(f"right operand of rank {len(w.shape)} is not supported (rank 2 only)")
-    n, k = (w.shape[0], w.shape[1]) if w_layout == "nk" else (w.shape[1], w.shape[0])
+    batch = 1
+    if len(w.shape) == 3 and w.is_const and w_layout == "kn" and len(x.shape) == 3 \
+            and x.shape[0] == w.shape[0]:
+        batch = w.shape[0]
+        if w.quant.scale.size != 1:
+            raise b.error("batched MatMul with per-column weight scales is not supported")
+    elif len(w.shape) != 2:
+        raise b.error(f"right operand of rank {len(w.shape)} is not supported (rank 2, or a "
+                      "constant rank 3 matching the batch)")
+    kdim, ndim = (w.shape[-1], w.shape[-2]) if w_layout == "nk" else (w.shape[-2], w.shape[-1])
+    n, k = ndim, kdim
     if x.shape[-1] != k:
         raise b.error(f"inner dimensions differ: {list(x.shape)} x {list(w.shape)}")
     if not w.is_const:
         _need_per_tensor(b, w, "right operand")
     elif w.quant is None or w.quant.scale.size not in (1, n):
         raise b.error("weight scale must be per-tensor or one per output column")
-    if w.is_const and w_layout == "kn":  # store constant weights [N, K]: rows contiguous
-        wt = b.add_tensor(w.name + "_nk", (n, k), "int8", w.quant,
-                          np.ascontiguousarray(w.data.T))
+    if w.is_const and w_layout == "kn":  # store constant weights [.., N, K]: rows contiguous
+        q = w.quant
+        if q.per_axis:
+            q = QuantParams(q.scale, q.zero_point, 0 if batch == 1 else None, q.src_dtype)
+        wt = b.add_tensor(w.name + "_nk", (*w.shape[:-2], n, k), "int8", q,
+                          np.ascontiguousarray(np.swapaxes(w.data, -1, -2)))
         w, w_layout = wt, "nk"
     shape = (*x.shape[:-1], n)
     y = _out(b, out_name, shape, y_q, "int8" if y_q is not None else "int32")
@@ -111,7 +125,7 @@ def emit_fc(b: Builder, out_name: str, x: Tensor, w: Tensor, bias: np.ndarray | 
     if bias is not None:
         bt = b.add_tensor(out_name + "_bias", (n,), "int32", None, bias.astype(np.int32))
         inputs.append(bt.name)
-    b.add_op("fc", inputs, [y.name], act=act, w_layout=w_layout)
+    b.add_op("fc", inputs, [y.name], act=act, w_layout=w_layout, batch=batch)
     return y
 
 

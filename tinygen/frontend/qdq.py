@@ -33,8 +33,6 @@ def _q_params(L, node, out_dtype_hint=None):
         src = out_dtype_hint or np.dtype(np.uint8)
     if np.dtype(src) not in (np.int8, np.uint8) and np.dtype(src) != np.int32:
         raise L.error(f"{np.dtype(src).name} quantization is not supported (int8 and uint8 only)")
-    if np.asarray(scale).dtype != np.float32:
-        raise L.error(f"scale of type {np.asarray(scale).dtype} is not supported (float32 only)")
     axis = L.view.attr(node, "axis", 1)
     return scale, zp, np.dtype(src), axis
 

@@ -25,10 +25,11 @@ def accumulator_bound(op, graph: Graph) -> int:
         zw = w.quant.scalar_zp()
         return int(np.max(bias + x.shape[-1] * dx * max(127 - zw, zw + 128)))
     wd = w.data.astype(np.int64)
-    wd = wd.reshape(wd.shape[0], -1) if op.kind == "conv" or w.shape[0] != x.shape[-1] else wd
-    if op.kind == "fc" and op.attrs.get("w_layout") == "kn":
-        wd = wd.T
-    zw = np.broadcast_to(np.asarray(w.quant.zero_point, np.int64), (wd.shape[0],))
+    # const weights are [out, ...] for conv and [..., out, depth] for fc: one row per output
+    wd = wd.reshape(wd.shape[0], -1) if op.kind == "conv" else wd.reshape(-1, w.shape[-1])
+    outs = w.shape[0] if op.kind == "conv" else w.shape[-2]
+    zw = np.resize(np.broadcast_to(np.asarray(w.quant.zero_point, np.int64), (outs,)),
+                   wd.shape[0])
     per_channel = np.abs(wd - zw[:, None]).sum(axis=1) * dx
     return int(np.max(bias + per_channel))
 

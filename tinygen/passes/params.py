@@ -24,6 +24,8 @@ class KernelCall:
     family: str  # runtime file family: tg_<family>.c / tg_<family>.h
     params: object  # reference params dataclass mirroring the C struct (None: no params)
     args: list[str]  # tensor names after the params pointer, output last
+    batch: int = 1  # > 1: the call repeats with each arg advanced by batch_step elements
+    batch_step: tuple[int, ...] = ()
 
 
 def _f32(x) -> np.float32:
@@ -74,7 +76,8 @@ def _fc(graph: Graph, op: Op, mode: str) -> KernelCall:
     x, w, y = t[op.inputs[0]], t[op.inputs[1]], t[op.outputs[0]]
     b = t[op.inputs[2]] if len(op.inputs) > 2 else None
     depth, out = x.shape[-1], y.shape[-1]
-    rows = x.size // depth
+    batch = op.attrs.get("batch", 1)
+    rows = x.size // depth // batch
     if w.is_const:
         so, sk = depth, 1  # [out][depth]
     else:
@@ -82,7 +85,9 @@ def _fc(graph: Graph, op: Op, mode: str) -> KernelCall:
     rq = None if y.dtype == "int32" else channel_requant(x, w, y, out, op.attrs["act"], mode)
     p = FcParams(rows=rows, depth=depth, out=out, w_stride_o=so, w_stride_k=sk,
                  x_zp=x.quant.scalar_zp(), w_zp=_w_zp(w, out), rq=rq)
-    return KernelCall("tg_fc", "fc", p, [x.name, w.name, b.name if b else "", y.name])
+    step = (rows * depth, out * depth, 0, rows * out) if batch > 1 else ()
+    return KernelCall("tg_fc", "fc", p, [x.name, w.name, b.name if b else "", y.name],
+                      batch, step)
 
 
 def logical_strides(t: Tensor, out_rank: int) -> list[int]:
