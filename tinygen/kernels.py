@@ -14,6 +14,7 @@ import numpy as np
 from tinygen.reference import conv as ref_conv
 from tinygen.reference import fc as ref_fc
 from tinygen.reference import lut as ref_lut
+from tinygen.reference import pool as ref_pool
 from tinygen.reference import shape as ref_shape
 
 
@@ -41,6 +42,10 @@ KERNELS: dict[str, Kernel] = {
     "tg_conv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.conv)),
     "tg_dwconv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.dwconv)),
     "tg_fc": Kernel("fc", "tg_fc_params_t", _fc_ref),
+    "tg_maxpool": Kernel("pool", "tg_pool_params_t", lambda p, x: ref_pool.maxpool(
+        p, x.reshape(p.n, p.in_h, p.in_w, p.c))),
+    "tg_avgpool": Kernel("pool", "tg_pool_params_t", lambda p, x: ref_pool.avgpool(
+        p, x.reshape(p.n, p.in_h, p.in_w, p.c))),
     "tg_lut": Kernel("lut", None, lambda p, x: ref_lut.lut(p.table, x)),
     "tg_concat": Kernel("shape", "tg_concat_params_t",
                         lambda p, *parts: ref_shape.concat(p, list(parts))),

@@ -159,8 +159,31 @@ def _pad(graph: Graph, op: Op, mode: str) -> KernelCall:
     return KernelCall("tg_pad", "shape", p, [x.name, y.name])
 
 
-LOWERINGS = {"conv": _conv, "fc": _fc, "lut": _lut, "concat": _concat,
-             "transpose": _transpose, "pad": _pad}
+def _pool(graph: Graph, op: Op, mode: str) -> KernelCall:
+    from tinygen.reference.pool import PoolParams, make_avgpool_params
+    t = graph.tensors
+    x, y = t[op.inputs[0]], t[op.outputs[0]]
+    xs, ys = x.storage_shape(), y.storage_shape()
+    if len(xs) == 3:
+        xs, ys = (xs[0], 1, xs[1], xs[2]), (ys[0], 1, ys[1], ys[2])
+    kh, kw = op.attrs["kernel"]
+    (sh, sw), (dh, dw) = op.attrs["strides"], op.attrs["dilations"]
+    geo = PoolParams(n=xs[0], in_h=xs[1], in_w=xs[2], c=xs[3], out_h=ys[1], out_w=ys[2],
+                     k_h=kh, k_w=kw, stride_h=sh, stride_w=sw, dil_h=dh, dil_w=dw,
+                     pad_top=op.attrs["pads"][0], pad_left=op.attrs["pads"][1])
+    lo, hi = op.attrs.get("act", (-128, 127))
+    if op.kind == "maxpool":
+        geo.out_zp, geo.act_min, geo.act_max = y.quant.scalar_zp(), lo, hi
+        return KernelCall("tg_maxpool", "pool", geo, [x.name, y.name])
+    p = make_avgpool_params(geo, x.quant.scalar_scale(), x.quant.scalar_zp(),
+                            y.quant.scalar_scale(), y.quant.scalar_zp(),
+                            bool(op.attrs.get("count_include_pad", 0)), mode, "qlinear",
+                            y.quant.src_dtype, lo, hi)
+    return KernelCall("tg_avgpool", "pool", p, [x.name, y.name])
+
+
+LOWERINGS = {"conv": _conv, "maxpool": _pool, "avgpool": _pool, "fc": _fc, "lut": _lut,
+             "concat": _concat, "transpose": _transpose, "pad": _pad}
 
 
 def lower_params(graph: Graph, mode: str) -> Graph:
