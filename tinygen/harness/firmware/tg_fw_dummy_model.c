@@ -1,0 +1,31 @@
+/* tg_fw_dummy_model.c - stand-in for the model in the baseline build.
+ *
+ * Contract: defines the model's entry points (names from tg_fw_glue.h, prototypes from
+ * the model's header) doing nothing, so that the same firmware links without the model.
+ * Flash and RAM of the model = measurement build minus this build (plus these stubs).
+ */
+#include "tg_fw_glue.h"
+
+int TG_FW_RUN(void *arena, const void *const *inputs, void *const *outputs)
+{
+    (void)arena;
+    (void)inputs;
+    (void)outputs;
+    return 0;
+}
+
+#if TG_FW_IO_ARENA
+void *TG_FW_INPUT(void *arena, int index)
+{
+    (void)arena;
+    (void)index;
+    return 0;
+}
+
+void *TG_FW_OUTPUT(void *arena, int index)
+{
+    (void)arena;
+    (void)index;
+    return 0;
+}
+#endif
