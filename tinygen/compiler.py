@@ -12,7 +12,7 @@ import numpy as np
 from tinygen.errors import TinygenError
 from tinygen.frontend import load_graph
 from tinygen.ir import Graph
-from tinygen.passes.cleanup import drop_dead_ops, isolate_io
+from tinygen.passes.cleanup import collapse_views, drop_dead_ops, isolate_io
 from tinygen.passes.fuse import fuse_activation
 from tinygen.passes.layout import assign_layout
 from tinygen.passes.overflow import check_accumulators
@@ -74,6 +74,7 @@ def constant_bytes(graph: Graph) -> int:
 def compile_model(path: str, opts: BuildOptions) -> Compiled:
     graph = load_graph(path, opts.input_shapes)
     graph = drop_dead_ops(graph)
+    graph = collapse_views(graph)
     graph = fuse_activation(graph)
     graph = assign_layout(graph)
     graph = isolate_io(graph)

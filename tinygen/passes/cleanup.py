@@ -44,3 +44,27 @@ def isolate_io(graph: Graph) -> Graph:
             graph.ops.append(Op("copy", [src.name], [io.name], {}, io.onnx_name, "output"))
         claimed.add(r if r not in claimed else io.name)
     return graph
+
+
+def collapse_views(graph: Graph) -> Graph:
+    """Join chains of views (Reshape after Flatten after a Q/DQ alias ...) into one view.
+
+    Needs: the lowered IR. Leaves: no view whose input is a view output read by nothing else.
+    """
+    changed = True
+    while changed:
+        changed = False
+        for op in graph.ops:
+            if op.kind != "view":
+                continue
+            prod = graph.producer(op.inputs[0])
+            mid = op.inputs[0]
+            if prod is None or prod.kind != "view" or len(graph.consumers(mid)) != 1 \
+                    or graph.is_graph_output(mid):
+                continue
+            op.inputs[0] = prod.inputs[0]
+            graph.ops.remove(prod)
+            del graph.tensors[mid]
+            changed = True
+            break
+    return graph

@@ -108,6 +108,8 @@ def assign_layout(graph: Graph) -> Graph:
             t = tensors[op.inputs[0]]
             if tuple(outs[0].shape) == tuple(t.shape):
                 outs[0].layout = t.layout
+            elif fold_flatten_into_fc(graph, op, t, outs[0]):
+                outs[0].layout = PLAIN
             else:
                 op.inputs[0] = want(op.inputs[0], PLAIN, op)
                 outs[0].layout = PLAIN
@@ -126,6 +128,31 @@ def assign_layout(graph: Graph) -> Graph:
         new_ops.append(op)
     graph.ops = new_ops
     return graph
+
+
+def fold_flatten_into_fc(graph: Graph, view: Op, src: Tensor, out: Tensor) -> bool:
+    """Flatten of a channels-last tensor feeding only a constant-weight fc: permute the
+    weight columns at compile time instead of transposing the activation at run time."""
+    if src.layout == PLAIN or len(src.shape) < 3 or len(out.shape) != 2:
+        return False
+    if out.shape != (src.shape[0], src.size // src.shape[0]):
+        return False
+    users = graph.consumers(out.name)
+    if len(users) != 1 or users[0].kind != "fc" or users[0].inputs[0] != out.name \
+            or graph.is_graph_output(out.name):
+        return False
+    fc = users[0]
+    w = graph.tensors[fc.inputs[1]]
+    if not w.is_const or fc.attrs.get("batch", 1) != 1 or w.shape[-1] != out.shape[1]:
+        return False
+    # storage position s holds logical (flattened ONNX) index plain[s]
+    per_image = np.arange(out.shape[1]).reshape(src.shape[1:])
+    plain = np.transpose(per_image, [p - 1 for p in storage_perm(len(src.shape),
+                                                                  src.layout)[1:]]).reshape(-1)
+    name = graph.tensors[fc.inputs[1]].name + "@cl"
+    graph.tensors[name] = Tensor(name, w.shape, w.dtype, w.quant, w.data[:, plain], PLAIN)
+    fc.inputs[1] = name
+    return True
 
 
 def storage_data(t: Tensor) -> np.ndarray:
