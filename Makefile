@@ -16,7 +16,8 @@ $(VENV)/.installed: pyproject.toml
 
 demo: $(VENV)/.installed
 	$(TG) emit $(DEMO_MODEL) -o $(DEMO_OUT) --force
-	$(TG) check $(DEMO_MODEL) --samples 100
+	$(TG) check $(DEMO_MODEL) --samples 100 --against-onnxruntime
+	@echo "demo: the C tree is in $(DEMO_OUT)/ (see README, 'In your firmware')"
 
 lint: $(VENV)/.installed
 	$(VENV)/bin/ruff check tinygen tests examples
@@ -41,6 +42,10 @@ bench: $(VENV)/.installed
 
 fuzz: $(VENV)/.installed
 	$(PY) -m pytest tests/fuzz -p no:cacheprovider --hypothesis-profile=campaign
+
+# Re-measure the README figure tables (host, and target when the toolchain is there).
+tables: $(VENV)/.installed
+	$(PY) -m tinygen.tables
 
 clean:
 	rm -rf out build .pytest_cache
