@@ -6,11 +6,10 @@
  */
 #include "tg_fw_glue.h"
 
-int TG_FW_RUN(void *arena, const void *const *inputs, void *const *outputs)
+/* The parameter list is copied from the model's header, so the types agree exactly. */
+int TG_FW_RUN(TG_FW_RUN_PARAMS)
 {
-    (void)arena;
-    (void)inputs;
-    (void)outputs;
+    TG_FW_RUN_UNUSED
     return 0;
 }
 

@@ -121,7 +121,7 @@ int main(void)
     static const uint32_t out_offset[TG_FW_NUM_OUTPUTS] = {TG_FW_OUTPUT_OFFSET_LIST};
     /* Caller-owned I/O buffers for --io external, 8-byte aligned. */
     uint64_t io_storage[(TG_FW_IO_STORAGE_BYTES + 7u) / 8u];
-    const void *inputs[TG_FW_NUM_INPUTS];
+    void *inputs[TG_FW_NUM_INPUTS];
     void *outputs[TG_FW_NUM_OUTPUTS];
 #endif
     const uint8_t *sample_bytes = tg_fw_samples;
@@ -154,7 +154,7 @@ int main(void)
 
 #if !TG_FW_IO_ARENA
     for (i = 0; i < TG_FW_NUM_INPUTS; ++i) {
-        inputs[i] = (const uint8_t *)io_storage + in_offset[i];
+        inputs[i] = (uint8_t *)io_storage + in_offset[i];
     }
     for (i = 0; i < TG_FW_NUM_OUTPUTS; ++i) {
         outputs[i] = (uint8_t *)io_storage + out_offset[i];
@@ -184,7 +184,8 @@ int main(void)
 #if TG_FW_IO_ARENA
         rc = TG_FW_RUN(0, 0, 0);
 #else
-        rc = TG_FW_RUN(0, inputs, outputs);
+        /* via void *: converts to whichever pointer-to-pointer type the header declares */
+        rc = TG_FW_RUN(0, (void *)inputs, (void *)outputs);
 #endif
         tg_fw_stamp(&after);
         /* Scan inline too: a called function's frame would land on the painted words. */
