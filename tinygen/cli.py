@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import re
 import sys
 
@@ -220,15 +221,29 @@ VERBS = {"emit": cmd_emit, "check": cmd_check, "plan": cmd_plan, "emulate": cmd_
          "report": cmd_report}
 
 
+def error_line(exc: TinygenError) -> str:
+    """`FILE: node 'N': op OP: reason` (docs/cli.md), on one line whatever the names hold."""
+    parts = [exc.file, f"node '{exc.node}'" if exc.node else "",
+             f"op {exc.op}" if exc.op else "", exc.reason]
+    return " ".join(": ".join(p for p in parts if p).split())
+
+
 def main(argv: list[str] | None = None) -> int:
     try:
         args = make_parser().parse_args(argv)
         return VERBS[args.verb](args)
     except TinygenError as exc:
-        print(f"tinygen: error: {exc.one_line()}", file=sys.stderr)
+        print(f"tinygen: error: {error_line(exc)}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("tinygen: interrupted", file=sys.stderr)
+        return 2
+    except Exception as exc:  # a bug in tinygen: still one line, still no output written
+        if os.environ.get("TINYGEN_TRACEBACK"):
+            raise
+        text = " ".join(f"{type(exc).__name__}: {exc}".split())[:300]
+        print(f"tinygen: internal error: {text} (please report it; set TINYGEN_TRACEBACK=1 "
+              "for the traceback)", file=sys.stderr)
         return 2
 
 
