@@ -202,6 +202,8 @@ def emit_softmax(b: Builder, out_name: str, x: Tensor, y_q: QuantParams, axis: i
 def emit_concat(b: Builder, out_name: str, xs: list[Tensor], y_q: QuantParams,
                 axis: int) -> Tensor:
     rank = len(xs[0].shape)
+    if not -rank <= axis < rank:
+        raise b.error(f"concat axis {axis} is out of range for rank {rank}")
     axis = axis + rank if axis < 0 else axis
     for t in xs:
         _need_per_tensor(b, t, "input")

@@ -248,8 +248,10 @@ def lower_data_movement(L, node, x, attrs, out):
     if op == "Identity":
         return ops.emit_view(b, out, x, x.shape)
     if op == "Flatten":
-        axis = int(attrs.get("axis", 1))
-        axis = axis + len(x.shape) if axis < 0 else axis
+        axis, rank = int(attrs.get("axis", 1)), len(x.shape)
+        if not -rank <= axis <= rank:  # ONNX Flatten: axis in [-r, r]
+            raise L.error(f"Flatten axis {axis} is out of range for rank {rank}")
+        axis = axis + rank if axis < 0 else axis
         lead = int(np.prod(x.shape[:axis], dtype=np.int64))
         return ops.emit_view(b, out, x, (lead, x.size // max(lead, 1)))
     if op == "Reshape":
@@ -263,14 +265,17 @@ def lower_data_movement(L, node, x, attrs, out):
         shape = list(x.shape)
         if op == "Squeeze":
             rank = len(shape)
-            axes = [a + rank if a < 0 else a for a in (axes if axes is not None else
-                                                      [i for i, d in enumerate(shape) if d == 1])]
+            axes = [_axis(L, a, rank, "Squeeze axes") for a in
+                    (axes if axes is not None else [i for i, d in enumerate(shape) if d == 1])]
             if any(shape[a] != 1 for a in axes):
                 raise L.error(f"cannot squeeze axes {axes} of shape {shape}")
             shape = [d for i, d in enumerate(shape) if i not in axes]
         else:
             rank = len(shape) + len(axes or [])
-            for a in sorted(a + rank if a < 0 else a for a in (axes or [])):
+            axes = sorted(_axis(L, a, rank, "Unsqueeze axes") for a in (axes or []))
+            if len(set(axes)) != len(axes):
+                raise L.error(f"Unsqueeze axes {axes} repeat an axis")
+            for a in axes:
                 shape.insert(a, 1)
         return ops.emit_view(b, out, x, shape)
     if op == "Transpose":
@@ -287,6 +292,13 @@ def lower_data_movement(L, node, x, attrs, out):
             raise L.error("Pad with an axes input is not supported")
         return ops.emit_pad(b, out, x, pads, _pad_value(L, node, x))
     raise L.error(f"op {op} is not supported here")
+
+
+def _axis(L, axis: int, rank: int, what: str) -> int:
+    """An ONNX axis in [-rank, rank) as a non-negative index, or a clear error."""
+    if not -rank <= int(axis) < rank:
+        raise L.error(f"{what} {axis} is out of range for rank {rank}")
+    return int(axis) % rank
 
 
 def _pad_value(L, node, x) -> int:
