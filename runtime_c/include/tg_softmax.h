@@ -3,8 +3,9 @@
  * x: [rows][len] int8, y: [rows][len] int8. exp_table[d] = round(2^20 * exp(-s_x * d)) for
  * d = max - x in 0..255 (compile time). For each row: e_i = exp_table[max - x_i],
  * sum = sum e_i (fits 32 bits for len <= 2047), and with 64-bit integer arithmetic
- * y_i = clamp(out_zp + floor((2*e_i*inv_out_q8 + 256*sum) / (512*sum)), act_min, act_max)
- * where inv_out_q8 = round(256 / s_y). y may not alias x.
+ * y_i = clamp(out_zp + round_half_even(e_i*inv_out_q8 / (256*sum)), act_min, act_max)
+ * (q = floor((2*e_i*inv_out_q8 + 256*sum) / (512*sum)), minus 1 when that division is exact
+ * and q is odd) where inv_out_q8 = round(256 / s_y). y may not alias x.
  */
 #ifndef TG_SOFTMAX_H
 #define TG_SOFTMAX_H
