@@ -64,6 +64,9 @@ class Builder:
         zp = np.asarray(zero_point if zero_point is not None else 0)
         if zp.dtype.kind not in "iu":
             raise self.error(f"zero point has dtype {zp.dtype}, expected an integer type")
+        if np.dtype(src_dtype) not in (np.int8, np.uint8):
+            raise self.error(f"zero point of type {np.dtype(src_dtype).name} is not supported "
+                             "(int8 or uint8 quantization only)")
         lo, hi = (0, 255) if np.dtype(src_dtype) == np.uint8 else (-128, 127)
         if np.any(zp < lo) or np.any(zp > hi):
             raise self.error(f"zero point {zp.reshape(-1)[:4].tolist()} is outside "

@@ -29,10 +29,14 @@ def operand(L, name: str, scale, zp, axis_for_const: int | None = None):
 
     v = L.value(name)
     src = np.asarray(zp).dtype
+    if src not in (np.int8, np.uint8):
+        raise L.error(f"zero point of '{name}' has type {src}; int8 or uint8 expected")
     if isinstance(v, Const):
         a = np.asarray(v.a)
         if a.dtype not in (np.int8, np.uint8):
             raise L.error(f"constant '{name}' has type {a.dtype}; int8 or uint8 expected")
+        if a.dtype != src and np.any(np.asarray(zp) != 0):  # a cast would change the value
+            raise L.error(f"zero point of '{name}' has type {src}, the data {a.dtype}")
         if a.dtype != src and np.asarray(zp).size:
             src = a.dtype
         per_axis = np.asarray(scale).size > 1 or np.asarray(zp).size > 1
