@@ -123,13 +123,25 @@ def _topological(nodes: list[onnx.NodeProto], available: set[str], path: str):
                 rest.append(n)
         pending = rest
         if not progress:
-            n = pending[0]
-            missing = [i for i in n.input if i not in done]
-            cyc = [i for i in missing if i in produced_by]
-            why = (f"input '{cyc[0]}' is part of a cycle" if cyc
-                   else f"input '{missing[0]}' is produced by no node, initializer or input")
-            raise TinygenError(why, file=path, node=n.name or n.output[0], op=n.op_type)
+            raise _stuck_error(pending, done, produced_by, path)
     return order
+
+
+def _stuck_error(pending, done: set[str], produced_by: dict, path: str) -> TinygenError:
+    """Why no pending node can run: an input nothing produces, else a cycle."""
+    for n in pending:  # a dangling input explains everything waiting on it: name it first
+        for i in n.input:
+            if i not in done and i not in produced_by:
+                return TinygenError(f"input '{i}' is produced by no node, initializer or "
+                                    "input", file=path, node=_label(n), op=n.op_type)
+    n = pending[0]
+    i = next(i for i in n.input if i not in done)
+    return TinygenError(f"input '{i}' is part of a cycle", file=path, node=_label(n),
+                        op=n.op_type)
+
+
+def _label(n: onnx.NodeProto) -> str:
+    return n.name or (n.output[0] if n.output else "")
 
 
 def _fold(node: onnx.NodeProto, consts: dict[str, np.ndarray], opset: int):
@@ -150,11 +162,15 @@ def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
     model, raw = _read_model(path)
     pinned = parse_input_shapes(input_shapes)
     _pin_shapes(model, pinned, path)
+    # dangling inputs and cycles first: our message names the node, the checker's does not
+    g0 = model.graph
+    _topological(list(g0.node), {i.name for i in g0.initializer} | {i.name for i in g0.input},
+                 path)
     try:
         onnx.checker.check_model(model)
     except onnx.checker.ValidationError as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else "invalid model"
-        raise TinygenError(f"onnx checker: {first}", file=path) from None
+        text = " ".join(str(exc).split()) or "invalid model"
+        raise TinygenError(f"onnx checker: {text[:300]}", file=path) from None
     opset = {o.domain or "": o.version for o in model.opset_import}
     try:
         inferred = shape_inference.infer_shapes(model, strict_mode=False)
