@@ -208,6 +208,10 @@ class Lowering:
                                  "tensors")
             if t.is_const:
                 raise self.error(f"graph output '{name}' is a constant")
+            declared = v.shapes.get(name)
+            if declared is not None and tuple(declared) != tuple(t.shape):
+                raise self.error(f"graph output '{name}' is declared {list(declared)} but "
+                                 f"computes {list(t.shape)}")
             src = "int32" if t.dtype == "int32" else (t.quant.src_dtype if t.quant else "int8")
             if onnx_dt is None:
                 onnx_dt = src

@@ -110,6 +110,9 @@ def lower_dequantize(L, node) -> None:
         L.env[out] = Deq(L.b.const_int8(x_name, a, src, q))
         return
     if isinstance(v, FloatIn):  # an int8/uint8 graph input
+        if np.asarray(scale).size != 1:
+            raise L.error(f"graph input '{x_name}' is dequantized per-axis: only constant "
+                          "weights may be (is it meant to be an initializer?)")
         q = _activation_quant(L, node, scale, zp, src, axis, 0)
         L.env[out] = Deq(L.quantize_input(x_name, q, src, out))
         return
