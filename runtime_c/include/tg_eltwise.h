@@ -8,8 +8,9 @@
  * mul fixed: y = clamp(out_zp + mul_shift((a - a_zp) * (b - b_zp), out_mult, out_shift)).
  * float (use_float; onnxruntime's QLinearAdd/QLinearMul on x86-64), with A = a + raw_offset,
  * B = b + raw_offset (the model's own int8 or uint8 values):
- *   add: v = fmaf(A, a_ratio, fmaf(B, b_ratio, bias)), or with the roles of a and b
- *        swapped when a_bcast_inner;   mul: v = (float)((a - a_zp) * (b - b_zp)) * ab_ratio + bias;
+ *   add: v = fmaf(A, a_ratio, fmaf(B, b_ratio, bias)), or
+ *        v = fmaf(B, b_ratio, fmaf(A, a_ratio, bias)) when a_bcast_inner;
+ *   mul: v = (float)((a - a_zp) * (b - b_zp)) * ab_ratio + bias;
  *   y = clamp(round_half_even(v) - raw_offset, act_min, act_max).
  * The compiler computes bias (tinygen.reference.eltwise). Float mode needs
  * TG_WITH_FLOAT_REQUANT and -ffp-contract=off; fmaf must be exact (hardware FMA or libm).
