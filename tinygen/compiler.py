@@ -71,8 +71,31 @@ def constant_bytes(graph: Graph) -> int:
     return sum(t.nbytes for n, t in graph.tensors.items() if t.is_const and n in used)
 
 
+# Kernel dimensions, counts and arena offsets are int32 in the C: every tensor and the arena
+# must stay below 2 GiB (far past any microcontroller, so this only stops nonsense shapes).
+MAX_BYTES = 2**31 - 1
+
+
+def check_sizes(graph: Graph) -> Graph:
+    """Refuse tensors the int32 kernel arguments cannot describe. Needs: the lowered IR."""
+    for op in graph.ops:
+        for name in op.outputs:
+            t = graph.tensors[name]
+            if t.nbytes > MAX_BYTES:
+                raise TinygenError(f"tensor '{name}' {list(t.shape)} needs {t.nbytes} bytes; "
+                                   f"tensors must stay below 2 GiB", file=graph.source_path,
+                                   node=op.name, op=op.onnx_op)
+    for io in graph.inputs:
+        t = graph.tensors[io.name]
+        if t.nbytes > MAX_BYTES:
+            raise TinygenError(f"graph input '{io.onnx_name}' {list(t.shape)} needs {t.nbytes} "
+                               "bytes; tensors must stay below 2 GiB", file=graph.source_path)
+    return graph
+
+
 def compile_model(path: str, opts: BuildOptions) -> Compiled:
     graph = load_graph(path, opts.input_shapes)
+    graph = check_sizes(graph)
     graph = drop_dead_ops(graph)
     graph = collapse_views(graph)
     graph = fuse_activation(graph)
@@ -108,6 +131,9 @@ def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
     problems = verify_plan(plan)
     if problems:
         raise TinygenError("internal error: memory plan failed verification: " + problems[0],
+                           file=graph.source_path)
+    if plan.arena_bytes > MAX_BYTES:
+        raise TinygenError(f"arena needs {plan.arena_bytes} bytes; it must stay below 2 GiB",
                            file=graph.source_path)
     if opts.arena_limit is not None and plan.arena_bytes > opts.arena_limit:
         big = max((b for b in buffers.values() if b.external is None), key=lambda b: b.size)
