@@ -11,6 +11,7 @@ from __future__ import annotations
 import html
 from dataclasses import dataclass, replace
 
+from tinygen.compiler import plan_arena
 from tinygen.errors import TinygenError
 from tinygen.plan import PLANNERS
 from tinygen.plan.lifetimes import Buffer
@@ -255,11 +256,11 @@ class PlannerRow:
     lower_bound: int | None
     naive: int | None
     arena_no_inplace: int | None
+    lower_bound_no_inplace: int | None
     error: str = ""
 
 
 def _replan(c, **changes):
-    from tinygen.compiler import plan_arena
     opts = replace(c.options, arena_limit=None, flash_limit=None, **changes)
     try:
         return plan_arena(c.graph, opts), ""
@@ -275,13 +276,14 @@ def compare_planners(c, with_no_inplace: bool = True) -> list[PlannerRow]:
             plan, err = _replan(c, planner=planner, order=order)
             alt = None
             if with_no_inplace:
-                alt_plan, _ = _replan(c, planner=planner, order=order, inplace=False)
-                alt = alt_plan.arena_bytes if alt_plan else None
+                alt, _ = _replan(c, planner=planner, order=order, inplace=False)
+            alt_arena, alt_bound = (alt.arena_bytes, alt.lower_bound) if alt else (None, None)
             if plan is None:
-                rows.append(PlannerRow(planner, order, None, None, None, alt, err))
+                rows.append(PlannerRow(planner, order, None, None, None, alt_arena, alt_bound,
+                                       err))
             else:
                 rows.append(PlannerRow(planner, order, plan.arena_bytes, plan.lower_bound,
-                                       plan.naive, alt))
+                                       plan.naive, alt_arena, alt_bound))
     return rows
 
 
@@ -291,6 +293,8 @@ FILLS = ("#a6cee3", "#fdbf6f", "#b2df8a", "#cab2d6", "#fb9a99", "#ffff99", "#8dd
          "#d9d9d9", "#bebada", "#fccde5")
 LIVE = "#0b7a5a"  # live-bytes line
 PEAK = "#b35900"  # peak step marker
+REGION = "#7a1f7a"  # region boundaries
+HALO = 'stroke="#ffffff" stroke-width="3" stroke-opacity="0.8" paint-order="stroke"'
 CHAR_W = 6.0  # approximate width of one character at font-size 10, for label fitting
 
 
@@ -299,7 +303,8 @@ def _f(x: float) -> str:
 
 
 def _esc(text: str) -> str:
-    return html.escape(printable(text), quote=True)
+    """XML-escape text that is already printable ASCII (model names pass `printable` first)."""
+    return html.escape(text, quote=True)
 
 
 def _tick_step(top: int) -> int:
@@ -331,22 +336,22 @@ class _Canvas:
         return self.top + self.ph - nbytes * self.scale
 
 
-def _buffer_rect(cv: _Canvas, r: BufferRow, n: int, i: int) -> list[str]:
+def _buffer_rect(cv: _Canvas, r: BufferRow, n: int, i: int) -> tuple[str, str | None]:
+    """The rectangle of one buffer, and its label when one fits inside it."""
     b = r.buf
     x0, x1 = cv.x(b.first) + 1, cv.x(b.last + 1) - 1
     lo = r.base + (b.offset or 0)
     y0, h = cv.y(lo + b.size), max(b.size * cv.scale, 1.0)
     tip = (f"{r.ident} {printable(b.name)}: {b.size} B at offset {b.offset} in {b.region}, "
            f"steps {step_label(b.first, n)}..{step_label(b.last, n)}")
-    out = [f'<rect class="buf" x="{_f(x0)}" y="{_f(y0)}" width="{_f(x1 - x0)}" '
-           f'height="{_f(h)}" fill="{FILLS[i % len(FILLS)]}" stroke="#333" '
-           f'stroke-width="0.8"><title>{_esc(tip)}</title></rect>']
+    rect = (f'<rect class="buf" x="{_f(x0)}" y="{_f(y0)}" width="{_f(x1 - x0)}" '
+            f'height="{_f(h)}" fill="{FILLS[i % len(FILLS)]}" stroke="#333" '
+            f'stroke-width="0.8"><title>{_esc(tip)}</title></rect>')
     for label in (f"{r.ident} {b.size} B", f"{b.size}", r.ident):
         if len(label) * CHAR_W + 4 <= x1 - x0 and h >= 12:
-            out.append(f'<text x="{_f((x0 + x1) / 2)}" y="{_f(y0 + h / 2 + 3.5)}" '
-                       f'text-anchor="middle" font-size="10">{_esc(label)}</text>')
-            break
-    return out
+            return rect, (f'<text x="{_f((x0 + x1) / 2)}" y="{_f(y0 + h / 2 + 3.5)}" '
+                          f'text-anchor="middle" font-size="10" {HALO}>{_esc(label)}</text>')
+    return rect, None
 
 
 def _axes(cv: _Canvas, ymax: int, prof: list[StepRow], n: int) -> list[str]:
@@ -368,7 +373,7 @@ def _axes(cv: _Canvas, ymax: int, prof: list[StepRow], n: int) -> list[str]:
                f'text-anchor="middle">byte offset</text>')
     every = 1 if cv.cw >= 14 else int(14 // cv.cw) + 1
     for r in prof:
-        if (r.step + 1) % every and r.step != n:
+        if (r.step + 1) % every:
             continue
         cx = cv.x(r.step) + cv.cw / 2
         out.append(f'<text x="{_f(cx)}" y="{_f(base + 13)}" text-anchor="middle" '
@@ -422,11 +427,20 @@ def plan_svg(c) -> str:
     out.append(f'<text x="{_f(px + cv.cw / 2)}" y="{_f(cv.top - 5)}" text-anchor="middle" '
                f'font-size="10" fill="{PEAK}">peak</text>')
     out += _axes(cv, ymax, prof, n)
+    labels = []
     for i, r in enumerate(rows):
-        out += _buffer_rect(cv, r, n, i)
-    for reg in plan.regions[1:]:  # region boundaries when there are several
-        base = region_bases(plan)[reg.name]
-        out += _hline(cv, base, f"region {reg.name}", 'stroke="#7a1f7a" stroke-width="1"', 12)
+        rect, label = _buffer_rect(cv, r, n, i)
+        out.append(rect)
+        labels += [label] if label else []
+    if len(plan.regions) > 1:  # region boundaries, each region named just above its base
+        for reg in plan.regions:
+            base = region_bases(plan)[reg.name]
+            y = cv.y(base)
+            if base:
+                out.append(f'<line x1="{_f(cv.left)}" y1="{_f(y)}" x2="{_f(cv.left + cv.pw)}" '
+                           f'y2="{_f(y)}" stroke="{REGION}" stroke-width="1.2"/>')
+            labels.append(f'<text x="{_f(cv.left + 4)}" y="{_f(y - 4)}" font-size="10" '
+                          f'fill="{REGION}" {HALO}>region {_esc(reg.name)}</text>')
     path = " ".join(f"{'M' if i == 0 else 'L'}{_f(cv.x(r.step))} {_f(cv.y(r.live_bytes))} "
                     f"L{_f(cv.x(r.step + 1))} {_f(cv.y(r.live_bytes))}"
                     for i, r in enumerate(prof))
@@ -435,13 +449,14 @@ def plan_svg(c) -> str:
     out.append(f'<rect class="peak-outline" x="{_f(px)}" y="{_f(cv.top)}" width="{_f(cv.cw)}" '
                f'height="{_f(cv.ph)}" fill="none" stroke="{PEAK}" stroke-width="1.4" '
                'stroke-dasharray="3 2"/>')
+    out += labels
     close = abs(fig.arena - fig.lower_bound) * cv.scale < 13
     out += _hline(cv, fig.arena, f"arena {fig.arena} B",
                   'stroke="#1f4e9a" stroke-width="1.4"', -4 if close else 4)
     out += _hline(cv, fig.lower_bound, f"lower bound {fig.lower_bound} B",
                   'stroke="#c0392b" stroke-width="1.4" stroke-dasharray="5 3"',
                   12 if close else 4)
-    lx, ly = cv.left + cv.pw + 8, cv.top + cv.ph - 30
+    lx, ly = cv.left + cv.pw + 8, cv.top + cv.ph + 30
     out += [f'<path d="M{_f(lx)} {_f(ly)} H{_f(lx + 18)}" stroke="{LIVE}" stroke-width="1.6"/>',
             f'<text x="{_f(lx + 22)}" y="{_f(ly + 3.5)}" font-size="10">live bytes</text>',
             f'<rect x="{_f(lx)}" y="{_f(ly + 12)}" width="18" height="9" fill="#ffd8a8" '
