@@ -1,5 +1,6 @@
 """emulate() on the hand-written fixture trees, on every supported board under QEMU."""
 import shutil
+import subprocess
 from pathlib import Path
 
 import pytest
@@ -7,6 +8,7 @@ import pytest
 from tinygen.emulate import emulate, json_ready, read_model_info
 from tinygen.errors import TinygenError
 from tinygen.harness import target
+from tinygen.harness.toolchain import find_toolchain
 
 pytestmark = pytest.mark.target
 
@@ -166,3 +168,32 @@ def test_requant_mode_must_match_a_fixed_config():
 def test_wrong_input_size_is_refused():
     with pytest.raises(TinygenError, match="expected 16"):
         emulate(FIXTURES / "addone", "model", "cortex-m3", [[bytes(15)]], requant_float=False)
+
+
+def _disassembly(elf: Path, function: str) -> list[str]:
+    """Mnemonic and operands of each instruction of `function`, from objdump."""
+    tools = find_toolchain()
+    out = subprocess.run([tools.objdump, "-d", "--no-show-raw-insn", str(elf)],
+                         capture_output=True, text=True, check=True).stdout
+    body = out.split(f"<{function}>:\n", 1)[1].split("\n\n", 1)[0]
+    rows = [line.split(":", 1)[1].strip() for line in body.splitlines() if ":" in line]
+    return [r for r in rows if not r.startswith(".word")]
+
+
+@pytest.mark.parametrize("opt", ["-Os", "-O2"])
+def test_per_op_count_matches_the_disassembly(opt, tmp_path):
+    # The per-op count must be exactly the instructions between the two hooks: counted
+    # here from objdump's listing of spin_run (straight-line code between the hooks'
+    # fixed sequences, "... strd" and "movw ..., #8192"), plus what tg_loop executes for
+    # n iterations: its whole body once, then (subs, bne) n - 1 more times.
+    n = 5
+    fig = emulate(FIXTURES / "spin", "spin", "cortex-m4", spin_samples([n]),
+                  requant_float=False, opt=opt, work_dir=tmp_path)
+    run = _disassembly(tmp_path / "per_op.elf", "spin_run")
+    begin = next(i for i, r in enumerate(run) if r.startswith("strd"))
+    end = next(i for i, r in enumerate(run) if i > begin and r.startswith("movw")
+               and "8192" in r)
+    between = run[begin + 1:end]
+    assert not any(r.startswith(("b.", "bne", "beq", "cb")) for r in between)
+    loop = _disassembly(tmp_path / "per_op.elf", "tg_loop")
+    assert fig["per_op"] == [{"op": 0, "instructions": len(between) + len(loop) + 2 * (n - 1)}]

@@ -1,11 +1,12 @@
 /* tg_fw_counter.h - instruction counting on QEMU's MPS2 boards via the CMSDK dual timer.
  *
  * Contract: tg_fw_counter_start() starts both halves of the dual timer free-running at
- * 32 bits; tg_fw_stamp() reads them (fine = /1 first, then coarse = /256). Both count
- * down. Under `-icount shift=S` every instruction advances virtual time by 2^S ns, so a
- * difference of fine readings is the instructions in between times 2^S / timer period.
- * tg_fw_elapsed() turns two stamps into that instruction count, exactly: build with
- * -DTG_FW_TICK_NS=<fine tick period in ns> -DTG_FW_ICOUNT_SHIFT=<S> (target.py does).
+ * 32 bits (fine = /1, coarse = /256; both count down). tg_fw_open() and tg_fw_close()
+ * read them at the start and the end of a measured stretch. Under `-icount shift=S`
+ * every instruction advances virtual time by 2^S ns, so the difference of fine readings
+ * is the instructions in between times 2^S / timer period; tg_fw_elapsed() turns two
+ * stamps into that instruction count, exactly. Build with -DTG_FW_TICK_NS=<fine tick in
+ * ns> -DTG_FW_ICOUNT_SHIFT=<S> (target.py does).
  */
 #ifndef TG_FW_COUNTER_H
 #define TG_FW_COUNTER_H
@@ -16,9 +17,12 @@
  * the secure state) its secure alias is at 0x50002000. */
 #if defined(TG_FW_BOARD_AN505)
 #define TG_FW_DUALTIMER_BASE 0x50002000u
+#define TG_FW_DUALTIMER_HI16 "0x5000"
 #else
 #define TG_FW_DUALTIMER_BASE 0x40002000u
+#define TG_FW_DUALTIMER_HI16 "0x4000"
 #endif
+#define TG_FW_DUALTIMER_LO16 "0x2000"
 
 #define TG_FW_REG(offset) (*(volatile uint32_t *)(TG_FW_DUALTIMER_BASE + (offset)))
 #define TG_FW_FINE_LOAD TG_FW_REG(0x00u)
@@ -50,21 +54,46 @@ static inline void tg_fw_counter_start(void)
     TG_FW_COARSE_CONTROL = TG_FW_CONTROL_COARSE;
 }
 
-/* The compiler barriers keep measured work from moving across the readings. */
-static inline void tg_fw_stamp(tg_fw_stamp_t *out)
+/* The two readings are fixed instruction sequences in assembly, so what they add to a
+ * measured stretch does not depend on the compiler: after the fine read in tg_fw_open
+ * come exactly two instructions (ldr, strd), before the one in tg_fw_close exactly two
+ * (movw, movt). The "memory" clobbers keep the measured work from moving across. */
+static inline __attribute__((always_inline)) void tg_fw_open(tg_fw_stamp_t *out)
 {
+    uint32_t base;
     uint32_t fine;
     uint32_t coarse;
-    __asm__ volatile("" ::: "memory");
-    fine = TG_FW_FINE_VALUE;
-    coarse = TG_FW_COARSE_VALUE;
-    __asm__ volatile("" ::: "memory");
+    __asm__ volatile("movw %[base], #" TG_FW_DUALTIMER_LO16 "\n\t"
+                     "movt %[base], #" TG_FW_DUALTIMER_HI16 "\n\t"
+                     "ldr %[fine], [%[base], #4]\n\t"
+                     "ldr %[coarse], [%[base], #0x24]\n\t"
+                     "strd %[fine], %[coarse], [%[out]]"
+                     : [base] "=&r"(base), [fine] "=&r"(fine), [coarse] "=&r"(coarse)
+                     : [out] "r"(out)
+                     : "memory");
+}
+
+static inline __attribute__((always_inline)) void tg_fw_close(tg_fw_stamp_t *out)
+{
+    uint32_t base;
+    uint32_t fine;
+    uint32_t coarse;
+    __asm__ volatile("movw %[base], #" TG_FW_DUALTIMER_LO16 "\n\t"
+                     "movt %[base], #" TG_FW_DUALTIMER_HI16 "\n\t"
+                     "ldr %[fine], [%[base], #4]\n\t"
+                     "ldr %[coarse], [%[base], #0x24]"
+                     : [base] "=&r"(base), [fine] "=&r"(fine), [coarse] "=&r"(coarse)
+                     :
+                     : "memory");
     out->fine = fine;
     out->coarse = coarse;
 }
 
 #if !defined(TG_FW_TICK_NS) || !defined(TG_FW_ICOUNT_SHIFT)
 #error "build with -DTG_FW_TICK_NS=<timer period, ns> -DTG_FW_ICOUNT_SHIFT=<qemu -icount shift>"
+#endif
+#if (TG_FW_TICK_NS * 2) >= (1 << TG_FW_ICOUNT_SHIFT)
+#error "TG_FW_ICOUNT_SHIFT too small: a timer tick must be under half an instruction's time"
 #endif
 
 /* Instructions executed from the fine reading of `from` to the fine reading of `to`.

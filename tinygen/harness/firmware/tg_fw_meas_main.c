@@ -136,8 +136,8 @@ int main(void)
     uint64_t op_calibration = 0u;
 
     tg_fw_counter_start();
-    tg_fw_stamp(&before);
-    tg_fw_stamp(&after);
+    tg_fw_open(&before);
+    tg_fw_close(&after);
     calibration = tg_fw_elapsed(&before, &after, &disagree);
 #if TG_FW_PER_OP
     if ((uint32_t)(tg_fw_mailbox_end - tg_fw_mailbox_start) < TG_FW_MAILBOX_BYTES) {
@@ -180,14 +180,14 @@ int main(void)
         for (word = tg_fw_stack_bottom; (uint32_t)word < sp; ++word) {
             *(volatile uint32_t *)word = TG_FW_PAINT;
         }
-        tg_fw_stamp(&before);
+        tg_fw_open(&before);
 #if TG_FW_IO_ARENA
         rc = TG_FW_RUN(0, 0, 0);
 #else
         /* via void *: converts to whichever pointer-to-pointer type the header declares */
         rc = TG_FW_RUN(0, (void *)inputs, (void *)outputs);
 #endif
-        tg_fw_stamp(&after);
+        tg_fw_close(&after);
         /* Scan inline too: a called function's frame would land on the painted words. */
         word = tg_fw_stack_bottom;
         while ((uint32_t)word < sp && *(volatile uint32_t *)word == TG_FW_PAINT) {

@@ -36,21 +36,22 @@ typedef struct {
 extern uint8_t tg_fw_mailbox_start[];
 extern uint8_t tg_fw_mailbox_end[];
 
-static inline tg_fw_mailbox_t *tg_fw_mailbox(void)
+static inline __attribute__((always_inline)) tg_fw_mailbox_t *tg_fw_mailbox(void)
 {
     return (tg_fw_mailbox_t *)(void *)tg_fw_mailbox_start;
 }
 
-static inline void tg_fw_op_begin(void)
+static inline __attribute__((always_inline)) void tg_fw_op_begin(void)
 {
-    tg_fw_stamp(&tg_fw_mailbox()->open);
+    tg_fw_open(&tg_fw_mailbox()->open);
 }
 
-static inline void tg_fw_op_end(uint32_t op)
+static inline __attribute__((always_inline)) void tg_fw_op_end(uint32_t op)
 {
     tg_fw_stamp_t now;
-    tg_fw_mailbox_t *box = tg_fw_mailbox();
-    tg_fw_stamp(&now);
+    tg_fw_mailbox_t *box;
+    tg_fw_close(&now);
+    box = tg_fw_mailbox();
     if (op < (uint32_t)TG_FW_OP_SLOTS) {
         box->slot[op].instructions += tg_fw_elapsed(&box->open, &now, &box->disagree);
         box->slot[op].calls += 1u;
