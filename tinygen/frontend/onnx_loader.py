@@ -95,7 +95,10 @@ def _pin_shapes(model: onnx.ModelProto, pinned: dict[str, tuple[int, ...]], path
             for d in shape:
                 dims.add().dim_value = d
         for i, d in enumerate(dims):
-            if not d.HasField("dim_value") or d.dim_value <= 0:
+            if d.HasField("dim_value") and d.dim_value <= 0:
+                raise TinygenError(f"input '{inp.name}' has dimension {d.dim_value} at axis "
+                                   f"{i} (size 0 or negative: nothing to compute)", file=path)
+            if not d.HasField("dim_value"):
                 sym = d.dim_param or "?"
                 raise TinygenError(
                     f"input '{inp.name}' has a symbolic dimension '{sym}' (axis {i}); pin it "
