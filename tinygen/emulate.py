@@ -8,9 +8,11 @@ See docs/target.md for what the figures mean.
 """
 from __future__ import annotations
 
+import os
 import re
 import shutil
 import tempfile
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -220,33 +222,46 @@ def _requant_flags(info: ModelInfo, requant_float: bool) -> list[str]:
     return []
 
 
+def _compile_all(b: _Build, jobs: list[tuple[Path, str, list[str]]]) -> list[Path]:
+    """Compile (source, group, flags) jobs, two at a time: the compiles dominate a run."""
+    workers = min(2, os.cpu_count() or 1)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        return list(pool.map(lambda job: b.obj(*job), jobs))
+
+
 def _build_images(b: _Build, info: ModelInfo, requant_float: bool, per_op: bool,
                   stack_bytes: int) -> dict[str, Path]:
     fw = target.FIRMWARE_DIR
-    common = [b.obj(fw / name, "fw", b.firmware_flags())
-              for name in ("tg_fw_startup.c", "tg_fw_semihost.c")]
-    main = b.obj(fw / "tg_fw_meas_main.c", "fw", b.firmware_flags())
     tree_flags = [f"-I{b.tree_dir}", *_requant_flags(info, requant_float)]
     sources = target.tree_sources(b.tree_dir)
-    tree = [b.obj(src, "tree", tree_flags) for src in sources]
-    images = {
-        "figures": target.link([*tree, main, *common], b.work / "figures.elf", b.board,
-                               opt=b.opt, stack_bytes=stack_bytes, tools=b.tools),
-        "baseline": target.link([b.obj(fw / "tg_fw_dummy_model.c", "fw", b.firmware_flags()),
-                                 main, *common], b.work / "baseline.elf", b.board,
-                                opt=b.opt, stack_bytes=stack_bytes, tools=b.tools),
-    }
-    if per_op and info.op_count:
-        slots = info.op_count + 1
+    jobs = [(fw / "tg_fw_startup.c", "fw", b.firmware_flags()),
+            (fw / "tg_fw_semihost.c", "fw", b.firmware_flags()),
+            (fw / "tg_fw_meas_main.c", "fw", b.firmware_flags()),
+            (fw / "tg_fw_dummy_model.c", "fw", b.firmware_flags())]
+    jobs += [(src, "tree", tree_flags) for src in sources]
+    slots = info.op_count + 1
+    with_ops = per_op and info.op_count > 0
+    if with_ops:
         hooks = [f"-DTG_FW_OP_SLOTS={slots}u", *target.firmware_defines(b.board),
                  f"-I{fw}", "-include", "tg_fw_op_hooks.h"]
-        tree_ops = [b.obj(src, "tree_ops", [*tree_flags, *hooks]) for src in sources]
-        main_ops = b.obj(fw / "tg_fw_meas_main.c", "fw_ops",
-                         b.firmware_flags(["-DTG_FW_PER_OP=1", f"-DTG_FW_OP_SLOTS={slots}u"]))
+        jobs.append((fw / "tg_fw_meas_main.c", "fw_ops",
+                     b.firmware_flags(["-DTG_FW_PER_OP=1", f"-DTG_FW_OP_SLOTS={slots}u"])))
+        jobs += [(src, "tree_ops", [*tree_flags, *hooks]) for src in sources]
+    objs = _compile_all(b, jobs)
+    startup, semihost, main, dummy = objs[:4]
+    tree = objs[4:4 + len(sources)]
+    common = [startup, semihost]
+
+    def image(name: str, objects: list[Path], mailbox: int = 0) -> Path:
+        return target.link(objects, b.work / f"{name}.elf", b.board, opt=b.opt,
+                           stack_bytes=stack_bytes, mailbox_bytes=mailbox, tools=b.tools)
+
+    images = {"figures": image("figures", [*tree, main, *common]),
+              "baseline": image("baseline", [dummy, main, *common])}
+    if with_ops:
+        main_ops, tree_ops = objs[4 + len(sources)], objs[5 + len(sources):]
         mailbox = _MAILBOX_HEADER_BYTES + _MAILBOX_SLOT_BYTES * slots
-        images["per_op"] = target.link([*tree_ops, main_ops, *common], b.work / "per_op.elf",
-                                       b.board, opt=b.opt, stack_bytes=stack_bytes,
-                                       mailbox_bytes=mailbox, tools=b.tools)
+        images["per_op"] = image("per_op", [*tree_ops, main_ops, *common], mailbox)
     return images
 
 
