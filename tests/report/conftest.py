@@ -28,6 +28,20 @@ def branchy_float() -> onnx.ModelProto:
     return n.model(n.gemm(y, 12, 3))
 
 
+def twin_float() -> onnx.ModelProto:
+    """Two branches, each a wide conv narrowed by a 1x1 conv, written interleaved: running
+    one branch to its end before starting the other needs less memory."""
+    n = Net((1, 4, 32), seed=2, name="twin")
+    a1 = n.conv("input", 4, 32, 3, pads=[1, 1])
+    b1 = n.conv("input", 4, 32, 3, pads=[1, 1])
+    a2 = n.conv(a1, 32, 2, 1)
+    b2 = n.conv(b1, 32, 2, 1)
+    y = n.op("Concat", [a2, b2], axis=1)
+    y = n.op("GlobalAveragePool", [y])
+    y = n.op("Flatten", [y])
+    return n.model(n.gemm(y, 4, 2))
+
+
 def _rename_tensor(graph: onnx.GraphProto, old: str, new: str) -> None:
     for node in graph.node:
         node.input[:] = [new if t == old else t for t in node.input]
@@ -41,6 +55,12 @@ def _rename_tensor(graph: onnx.GraphProto, old: str, new: str) -> None:
 def branchy_path(tmp_path_factory) -> Path:
     return quantize(branchy_float(), tmp_path_factory.mktemp("branchy") / "branchy.onnx",
                     fmt="qdq", activations="int8")
+
+
+@pytest.fixture(scope="session")
+def twin_path(tmp_path_factory) -> Path:
+    return quantize(twin_float(), tmp_path_factory.mktemp("twin") / "twin.onnx", fmt="qdq",
+                    activations="int8")
 
 
 @pytest.fixture(scope="session")

@@ -110,6 +110,17 @@ def test_report_sections_carry_the_figures(pump):
         assert doc.count(f"<td>{planner}</td>") == 2  # once per order
 
 
+def test_report_names_the_better_order(twin_path, pump):
+    c = compile_model(str(twin_path), BuildOptions())
+    text = "".join(parse(render_report(c, None, None, "f")).text)
+    given = summary(c)["arena_bytes"]
+    best = compile_model(str(twin_path), BuildOptions(order="min-peak")).plan.arena_bytes
+    assert best < given
+    assert (f"Smallest arena: {best} B with --planner greedy-size --order min-peak, "
+            f"{given - best} B below this build's {given} B.") in text
+    assert "is the smallest of these" in render_report(pump, None, None, "f")
+
+
 def test_hostile_names_are_escaped(hostile_path, tmp_path):
     c = compile_model(str(hostile_path), BuildOptions())
     out = tmp_path / "r.html"

@@ -189,6 +189,19 @@ def _buffers_section(c) -> str:
          "read by"], rows)
 
 
+def best_line(c, results) -> str:
+    """Which planner and order give the smallest arena, against this build."""
+    ok = [r for r in results if r.arena is not None]
+    if not ok:
+        return "No planner and order fits the given regions."
+    best = min(ok, key=lambda r: r.arena)
+    this = c.plan.arena_bytes
+    if best.arena >= this:
+        return f"This build's arena, {this} B, is the smallest of these."
+    return (f"Smallest arena: {best.arena} B with --planner {best.planner} --order "
+            f"{best.order}, {this - best.arena} B below this build's {this} B.")
+
+
 def _planner_section(c) -> str:
     rows, classes = [], []
     results = compare_planners(c)
@@ -205,9 +218,9 @@ def _planner_section(c) -> str:
             'unchanged (limits lifted). The lower bound belongs to each row\'s order: a '
             're-ordering can go below the given-order bound, a planner never below its own '
             'order\'s bound. Smallest arena in bold.</p>')
-    return "<h2>Planners and orders</h2>\n" + _table(
-        ["planner", "order", "arena B", "lower bound B", "loss B", "no reuse B",
-         "arena B without in-place", "note"], rows, classes) + "\n" + note
+    return ("<h2>Planners and orders</h2>\n" + f"<p>{_t(best_line(c, results))}</p>\n" +
+            _table(["planner", "order", "arena B", "lower bound B", "loss B", "no reuse B",
+                    "arena B without in-place", "note"], rows, classes) + "\n" + note)
 
 
 def render_report(c, budget_ram: int | None, budget_flash: int | None, flags: str) -> str:
