@@ -12,10 +12,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from tinygen.reference import conv as ref_conv
+from tinygen.reference import eltwise as ref_eltwise
 from tinygen.reference import fc as ref_fc
 from tinygen.reference import lut as ref_lut
 from tinygen.reference import pool as ref_pool
 from tinygen.reference import shape as ref_shape
+from tinygen.reference import softmax as ref_softmax
 
 
 @dataclass(frozen=True)
@@ -46,6 +48,9 @@ KERNELS: dict[str, Kernel] = {
         p, x.reshape(p.n, p.in_h, p.in_w, p.c))),
     "tg_avgpool": Kernel("pool", "tg_pool_params_t", lambda p, x: ref_pool.avgpool(
         p, x.reshape(p.n, p.in_h, p.in_w, p.c))),
+    "tg_add": Kernel("eltwise", "tg_eltwise_params_t", ref_eltwise.add),
+    "tg_mul": Kernel("eltwise", "tg_eltwise_params_t", ref_eltwise.mul),
+    "tg_softmax": Kernel("softmax", "tg_softmax_params_t", ref_softmax.softmax),
     "tg_lut": Kernel("lut", None, lambda p, x: ref_lut.lut(p.table, x)),
     "tg_concat": Kernel("shape", "tg_concat_params_t",
                         lambda p, *parts: ref_shape.concat(p, list(parts))),

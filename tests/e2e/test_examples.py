@@ -18,13 +18,14 @@ from tinygen.compiler import BuildOptions, compile_model
 ROOT = Path(__file__).resolve().parents[2]
 MODELS = sorted(p for p in (ROOT / "examples").glob("*/*.onnx") if not p.stem.endswith("_float"))
 
-# Float mode reproduces onnxruntime's integer kernels exactly for these graphs; a model listed
-# here with a number may differ by up to that many LSBs, for the reason given.
-ORT_FLOAT_TOLERANCE = {
-    # onnxruntime runs Tanh and HardSwish of this graph in float between DQ and Q, and its
-    # QLinearSigmoid / QLinearSoftmax use tables of their own (docs/numerics.md)
-    "gesture_band": 1,
-}
+# Float mode reproduces onnxruntime's integer kernels exactly for graphs of Conv/Gemm/Add/
+# pooling; a model listed here differs by up to that many output LSBs (measured with these
+# seeds, onnxruntime 1.32): its QLinearSigmoid and QLinearSoftmax use approximations of their
+# own (up to 4 LSB at the Sigmoid, 1 LSB at the Softmax, which a Gemm in between amplifies),
+# while our tables follow the ONNX definition -- which the onnx.reference test below checks.
+ORT_FLOAT_TOLERANCE = {"gesture_band": 6}
+ORT_FIXED_TOLERANCE = {"gesture_band": 10}
+QDQ_MODELS = [m for m in MODELS if m.stem in ("pump_vibration", "gesture_band")]
 
 
 def test_examples_exist():
@@ -58,8 +59,33 @@ def test_fixed_mode_stays_within_one_lsb_of_onnxruntime(model):
     c = compile_model(str(model), BuildOptions(requant="fixed"))
     res = run_check(c, str(model), random_inputs(c.graph, 50, seed=3), "test", against_ort=True)
     # fixed mode rounds once in Q31 where onnxruntime rounds a float32 product: measured
-    # distance, not a contract (docs/numerics.md has the figures)
-    assert res.onnxruntime["max_abs_diff"] <= 2, res.onnxruntime
+    # distance, not a contract (the README table has the figures)
+    assert res.onnxruntime["max_abs_diff"] <= ORT_FIXED_TOLERANCE.get(model.stem, 1), \
+        res.onnxruntime
+
+
+@pytest.mark.parametrize("model", QDQ_MODELS, ids=lambda p: p.stem)
+def test_float_mode_matches_the_onnx_reference_evaluator(model):
+    """Source: onnx.reference.ReferenceEvaluator, the ONNX project's own evaluator of the
+    operator definitions (DequantizeLinear -> float op -> QuantizeLinear, in float). The QDQ
+    examples' float-mode output equals it on every element."""
+    import onnx
+    from onnx import version_converter
+    from onnx.reference import ReferenceEvaluator
+
+    from tinygen.compiler import logical_outputs, storage_inputs
+    from tinygen.runner import run_reference
+    m = version_converter.convert_version(onnx.load(model), 21)  # its Q/DQ need opset >= 19
+    ev = ReferenceEvaluator(m)
+    c = compile_model(str(model), BuildOptions(requant="float"))
+    g = c.graph
+    io = g.outputs[0]
+    zp = io.quant.scalar_zp() + (128 if io.buffer_dtype == "uint8" else 0)
+    for s in random_inputs(g, 20, seed=5):
+        ours = logical_outputs(g, run_reference(g, storage_inputs(g, s), c.plan.order))[0]
+        y = ev.run(None, {g.inputs[0].onnx_name: s[0]})[0]
+        q = np.rint(y / np.float32(io.quant.scalar_scale())) + zp
+        np.testing.assert_array_equal(q.reshape(-1), ours.astype(np.int64).reshape(-1))
 
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda p: p.stem)

@@ -97,7 +97,7 @@ class ParamsWriter:
     def _init(self, name: str, params) -> str:
         parts = []
         for f in dataclasses.fields(params):
-            if not f.init:  # derived fields exist only on the Python side
+            if not f.init or not f.compare:  # Python-side bookkeeping, not in the C struct
                 continue
             v = getattr(params, f.name)
             parts.append(f".{f.name} = {self._value(f'{name}_{f.name}', v)}")

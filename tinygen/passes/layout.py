@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from tinygen.errors import TinygenError
 from tinygen.ir import CHANNELS_LAST, PLAIN, Graph, Op, Tensor, storage_perm, storage_shape
 
 SPATIAL = {"conv", "maxpool", "avgpool"}
@@ -79,15 +80,31 @@ def assign_layout(graph: Graph) -> Graph:
         elif k in ("lut", "copy"):
             outs[0].layout = tensors[op.inputs[0]].layout
         elif k in ("add", "mul"):
-            # Broadcasting goes through strides (see passes/params.py), so any mix of
-            # layouts works; the output takes the layout of its first full-rank activation.
+            # The kernel broadcasts through strides over the output's storage order: a
+            # constant operand is re-laid into that order at compile time; an activation
+            # must already walk its non-unit axes in that order (else it is converted).
             rank = len(outs[0].shape)
             acts = [tensors[n] for n in op.inputs
                     if not tensors[n].is_const and len(tensors[n].shape) == rank]
             lay = acts[0].layout if acts else natural_layout(outs[0])
-            for n in op.inputs:
-                if tensors[n].is_const and len(tensors[n].shape) == rank and rank >= 3:
-                    tensors[n].layout = lay
+            if rank < 3:
+                lay = PLAIN
+            for i, n in enumerate(op.inputs):
+                t = tensors[n]
+                if t.is_const:
+                    if len(t.shape) < rank:
+                        t = expand_const(tensors, t, rank)
+                        op.inputs[i] = t.name
+                    t.layout = lay if rank >= 3 else PLAIN
+                elif len(t.shape) == rank and not same_bytes(t.shape, t.layout, lay):
+                    op.inputs[i] = want(n, lay, op)
+                elif len(t.shape) < rank:
+                    full = (1,) * (rank - len(t.shape)) + tuple(t.shape)
+                    if not same_bytes(full, PLAIN, lay):
+                        raise TinygenError(f"broadcasting a rank-{len(t.shape)} activation "
+                                           f"over a {lay} rank-{rank} tensor is not supported",
+                                           file=graph.source_path, node=op.name,
+                                           op=op.onnx_op)
             outs[0].layout = lay
         elif k == "concat":
             lay = tensors[op.inputs[0]].layout
@@ -128,6 +145,15 @@ def assign_layout(graph: Graph) -> Graph:
         new_ops.append(op)
     graph.ops = new_ops
     return graph
+
+
+def expand_const(tensors: dict, t: Tensor, rank: int) -> Tensor:
+    """A copy of constant t with leading unit axes up to `rank` (numpy broadcasting)."""
+    shape = (1,) * (rank - len(t.shape)) + tuple(t.shape)
+    name = f"{t.name}@r{rank}"
+    if name not in tensors:
+        tensors[name] = Tensor(name, shape, t.dtype, t.quant, t.data.reshape(shape), PLAIN)
+    return tensors[name]
 
 
 def fold_flatten_into_fc(graph: Graph, view: Op, src: Tensor, out: Tensor) -> bool:

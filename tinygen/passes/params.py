@@ -182,8 +182,41 @@ def _pool(graph: Graph, op: Op, mode: str) -> KernelCall:
     return KernelCall("tg_avgpool", "pool", p, [x.name, y.name])
 
 
-LOWERINGS = {"conv": _conv, "maxpool": _pool, "avgpool": _pool, "fc": _fc, "lut": _lut,
-             "concat": _concat, "transpose": _transpose, "pad": _pad}
+def broadcast_storage_shape(t: Tensor, out: Tensor) -> tuple[int, ...]:
+    """t's shape expanded to out's rank and listed in out's storage order (layout.py has
+    made sure t's bytes walk its non-unit axes in that order)."""
+    rank = len(out.shape)
+    full = (1,) * (rank - len(t.shape)) + tuple(t.shape)
+    return tuple(full[a] for a in storage_perm(rank, out.layout))
+
+
+def _eltwise(graph: Graph, op: Op, mode: str) -> KernelCall:
+    from tinygen.reference.eltwise import make_add_params, make_mul_params
+    t = graph.tensors
+    a, b, y = t[op.inputs[0]], t[op.inputs[1]], t[op.outputs[0]]
+    make = make_add_params if op.kind == "add" else make_mul_params
+    lo, hi = op.attrs.get("act", (-128, 127))
+    p = make(broadcast_storage_shape(a, y), broadcast_storage_shape(b, y),
+             a.quant.scalar_scale(), a.quant.scalar_zp(), b.quant.scalar_scale(),
+             b.quant.scalar_zp(), y.quant.scalar_scale(), y.quant.scalar_zp(), mode,
+             y.quant.src_dtype, lo, hi)
+    return KernelCall("tg_add" if op.kind == "add" else "tg_mul", "eltwise", p,
+                      [a.name, b.name, y.name])
+
+
+def _softmax(graph: Graph, op: Op, mode: str) -> KernelCall:
+    from tinygen.reference.softmax import make_softmax_params
+    t = graph.tensors
+    x, y = t[op.inputs[0]], t[op.outputs[0]]
+    length = x.storage_shape()[-1]
+    p = make_softmax_params(x.size // length, length, x.quant.scalar_scale(),
+                            y.quant.scalar_scale(), y.quant.scalar_zp())
+    return KernelCall("tg_softmax", "softmax", p, [x.name, y.name])
+
+
+LOWERINGS = {"conv": _conv, "fc": _fc, "add": _eltwise, "mul": _eltwise, "maxpool": _pool,
+             "avgpool": _pool, "lut": _lut, "softmax": _softmax, "concat": _concat,
+             "transpose": _transpose, "pad": _pad}
 
 
 def lower_params(graph: Graph, mode: str) -> Graph:
