@@ -35,7 +35,8 @@ class ModelInfo:
     input_bytes: list[int]
     output_bytes: list[int]
     arena_bytes: int
-    io_arena: bool               # --io arena (I/O in the arena) vs --io external
+    io_functions: bool           # the header declares <prefix>_input() and _output()
+    io_mode: int                 # TG_FW_IO_MODE: 0 ask the model, 1 arena, 2 external
     op_count: int                # ops with hooks (highest literal index + 1)
     float_requant: int | None    # TG_WITH_FLOAT_REQUANT as tg_config.h sets it
     run_params: str              # parameter list of <prefix>_run() in the header
@@ -73,7 +74,8 @@ def _run_params(text: str, prefix: str, header: str) -> str:
 def read_model_info(tree_dir: Path, prefix: str = "model", io: str | None = None) -> ModelInfo:
     """Read sizes and modes from <prefix>.h and tg_config.h of an emitted tree.
 
-    io: "arena", "external", or None to infer it (the header declares <prefix>_input())."""
+    io: "arena", "external", or None to let the firmware ask the model: arena I/O when
+    <prefix>_input(NULL, 0) gives a buffer (a header may declare it in both modes)."""
     tree_dir = Path(tree_dir)
     header = f"{prefix}.h"
     path = tree_dir / header
@@ -83,16 +85,18 @@ def read_model_info(tree_dir: Path, prefix: str = "model", io: str | None = None
     up = prefix.upper()
     n_in = _define(text, f"{up}_NUM_INPUTS", header)
     n_out = _define(text, f"{up}_NUM_OUTPUTS", header)
-    if io is None:
-        io = "arena" if re.search(rf"\b{prefix}_input\s*\(", text) else "external"
-    if io not in ("arena", "external"):
+    functions = all(re.search(rf"\b{prefix}_{name}\s*\(", text) for name in ("input", "output"))
+    modes = {None: 0 if functions else 2, "arena": 1, "external": 2}
+    if io not in modes:
         raise TinygenError(f"io must be 'arena' or 'external', not '{io}'")
+    if io == "arena" and not functions:
+        raise TinygenError(f"{header}: --io arena needs {prefix}_input() and {prefix}_output()")
     return ModelInfo(
         prefix=prefix, header=header,
         input_bytes=[_define(text, f"{up}_INPUT_{i}_BYTES", header) for i in range(n_in)],
         output_bytes=[_define(text, f"{up}_OUTPUT_{i}_BYTES", header) for i in range(n_out)],
         arena_bytes=_define(text, f"{up}_ARENA_BYTES", header),
-        io_arena=io == "arena", op_count=_op_count(tree_dir),
+        io_functions=functions, io_mode=modes[io], op_count=_op_count(tree_dir),
         float_requant=_float_requant_setting(tree_dir),
         run_params=_run_params(text, prefix, header))
 
@@ -144,7 +148,8 @@ def glue_header(info: ModelInfo) -> str:
 #define TG_FW_RUN_UNUSED {unused}
 #define TG_FW_INPUT {p}_input
 #define TG_FW_OUTPUT {p}_output
-#define TG_FW_IO_ARENA {1 if info.io_arena else 0}
+#define TG_FW_HAS_IO_FUNCTIONS {1 if info.io_functions else 0}
+#define TG_FW_IO_MODE {info.io_mode}
 #define TG_FW_NUM_INPUTS {len(info.input_bytes)}u
 #define TG_FW_NUM_OUTPUTS {len(info.output_bytes)}u
 #define TG_FW_INPUT_BYTES_LIST {lst(info.input_bytes)}
@@ -292,7 +297,7 @@ def _model_footprint(images: dict[str, Path], info: ModelInfo,
     # The baseline carries the stand-in's stubs; the model build does not.
     stubs = target.symbol_sizes(images["baseline"], tools)
     names = [f"{info.prefix}_run"] + ([f"{info.prefix}_input", f"{info.prefix}_output"]
-                                      if info.io_arena else [])
+                                      if info.io_functions else [])
     stub_bytes = sum(stubs.get(n, 0) for n in names)
     return flash - base_flash + stub_bytes, ram - base_ram
 
@@ -343,6 +348,7 @@ def emulate(tree_dir, prefix: str, cpu: str, inputs: list[list[bytes]], *,
         totals = [s.instructions - report.calibration for s in report.samples]
         return {
             "cpu": cpu, "board": board.machine, "opt": opt, "bit_exact": None,
+            "io": "arena" if report.io_arena else "external",
             "flash_bytes": flash, "ram_bytes": ram, "arena_bytes": info.arena_bytes,
             "stack_bytes": max(s.stack_bytes for s in report.samples),
             "instructions": totals[0], "instructions_per_sample": totals,

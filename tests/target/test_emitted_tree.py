@@ -13,26 +13,32 @@ ROOT = Path(__file__).resolve().parents[2]
 MODEL = ROOT / "examples" / "pump_vibration" / "pump_vibration.onnx"
 
 
-@pytest.fixture(scope="module")
-def pump_tree(tmp_path_factory) -> Path:
+def _emit(out: Path, *flags: str) -> Path:
     if not MODEL.exists():
         pytest.skip(f"{MODEL} not present")
     from tinygen.cli import main
-    out = tmp_path_factory.mktemp("pump") / "tree"
-    assert main(["emit", str(MODEL), "-o", str(out)]) == 0
+    assert main(["emit", str(MODEL), "-o", str(out), *flags]) == 0
     return out
 
 
-def test_target_matches_the_host_build(pump_tree, tmp_path):
+@pytest.fixture(scope="module")
+def pump_tree(tmp_path_factory) -> Path:
+    return _emit(tmp_path_factory.mktemp("pump") / "tree")
+
+
+@pytest.mark.parametrize("io", ["arena", "external"])
+def test_target_matches_the_host_build(io, tmp_path):
     # The same C compiled for the host (tinygen.harness.host, gcc on x86) and for a
     # Cortex-M4 under QEMU must give the same bytes.
     from tinygen.harness.host import HostModel
+    tree = _emit(tmp_path / "tree", "--io", io)
     rng = np.random.default_rng(7)
     samples = [rng.integers(0, 256, 384, dtype=np.uint8) for _ in range(2)]
-    host = HostModel(pump_tree, "model", tmp_path / "host")
-    want = [[host.run([s], [(4, np.uint8)])[0].tobytes()] for s in samples]
-    fig = emulate(pump_tree, "model", "cortex-m4", [[s.tobytes()] for s in samples],
+    host = HostModel(tree, "model", tmp_path / "host")
+    want = [[host.run([s], [(4, np.uint8)], io=io)[0].tobytes()] for s in samples]
+    fig = emulate(tree, "model", "cortex-m4", [[s.tobytes()] for s in samples],
                   requant_float=False)
+    assert fig["io"] == io
     assert fig["outputs"] == want
     assert fig["forbidden_symbols"] == [] and fig["float_instructions"] == []
     assert fig["ram_bytes"] >= fig["arena_bytes"] > 0

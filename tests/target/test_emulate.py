@@ -5,7 +5,7 @@ from pathlib import Path
 
 import pytest
 
-from tinygen.emulate import emulate, json_ready, read_model_info
+from tinygen.emulate import emulate, json_ready
 from tinygen.errors import TinygenError
 from tinygen.harness import target
 from tinygen.harness.toolchain import find_toolchain
@@ -117,10 +117,35 @@ def test_external_io_tree(opt):
     assert [row["op"] for row in fig["per_op"]] == [0, 1]
 
 
-def test_io_mode_is_read_from_the_header():
-    assert read_model_info(FIXTURES / "addone", "model").io_arena
-    assert not read_model_info(FIXTURES / "door", "door").io_arena
-    assert read_model_info(FIXTURES / "door", "door").output_bytes == [12, 6]
+def _door_with_io_functions(tmp_path: Path) -> Path:
+    """The external-I/O door tree, plus door_input()/door_output() that return NULL, as an
+    emitted header declares them in both I/O modes."""
+    tree = tmp_path / "door_fn"
+    shutil.copytree(FIXTURES / "door", tree)
+    header = tree / "door.h"
+    header.write_text(header.read_text().replace(
+        "#endif /* DOOR_H */",
+        "void *door_input(void *arena, int index);\n"
+        "void *door_output(void *arena, int index);\n\n#endif /* DOOR_H */"))
+    (tree / "door_io.c").write_text(
+        "/* door_io.c - --io external: no I/O buffers in the arena. */\n"
+        "#include <stddef.h>\n\n#include \"door.h\"\n\n"
+        "void *door_input(void *arena, int index)\n{\n    (void)arena;\n    (void)index;\n"
+        "    return NULL;\n}\n\n"
+        "void *door_output(void *arena, int index)\n{\n    (void)arena;\n    (void)index;\n"
+        "    return NULL;\n}\n")
+    return tree
+
+
+def test_io_mode_comes_from_the_model(tmp_path):
+    tree = _door_with_io_functions(tmp_path)
+    in0, in1 = bytes([9, 8, 7, 6, 5, 4]), bytes([1, 2, 3])
+    fig = emulate(tree, "door", "cortex-m3", [[in0, in1]], requant_float=False)
+    assert fig["io"] == "external" and fig["outputs"][0][1] == in0[::-1]
+    assert emulate(FIXTURES / "addone", "model", "cortex-m3", [[bytes(16)]],
+                   requant_float=False, per_op=False)["io"] == "arena"
+    with pytest.raises(TinygenError, match="gave NULL"):
+        emulate(tree, "door", "cortex-m3", [[in0, in1]], requant_float=False, io="arena")
 
 
 def _tree_with_float_setting(tmp_path: Path, line: str) -> Path:

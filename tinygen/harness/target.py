@@ -193,6 +193,8 @@ class SampleReport:
 class FirmwareReport:
     calibration: int = 0        # instructions between two back-to-back stamps
     op_calibration: int = 0     # instructions of an empty TG_OP_BEGIN/END pair
+    io_arena: bool = False      # the model's I/O buffers are in its arena
+    io_missing: int = 0         # arena I/O asked for, buffers the model did not give
     samples: list[SampleReport] = field(default_factory=list)
     disagree: int = 0
     out_of_range: int = 0
@@ -215,6 +217,8 @@ def _parse_line(report: FirmwareReport, words: list[str]) -> None:
         report.samples = [SampleReport() for _ in range(int(args[0], 16))]
         report.calibration = _u64(args[1], args[2])
         report.op_calibration = _u64(args[3], args[4])
+        report.io_arena = int(args[5], 16) != 0
+        report.io_missing = int(args[6], 16)
     elif kind == "SAMPLE":
         s = report.samples[int(args[0], 16)]
         s.status = _signed32(args[1])
@@ -254,6 +258,9 @@ def parse_report(text: str) -> FirmwareReport:
 def check_report(report: FirmwareReport, result: RunResult, board: Board) -> None:
     """Raise TinygenError unless the run finished cleanly with sane counter readings."""
     where = f"{board.machine} ({board.cpu})"
+    if report.io_missing:
+        raise TinygenError(f"{where}: arena I/O asked for, but the model's _input()/_output() "
+                           "gave NULL (emitted with --io external?)")
     if report.fault:
         raise TinygenError(f"{where}: firmware faulted (ipsr pc cfsr hfsr = {report.fault})")
     if result.status != 0 or not report.finished:

@@ -13,7 +13,7 @@ int TG_FW_RUN(TG_FW_RUN_PARAMS)
     return 0;
 }
 
-#if TG_FW_IO_ARENA
+#if TG_FW_HAS_IO_FUNCTIONS
 void *TG_FW_INPUT(void *arena, int index)
 {
     (void)arena;

@@ -3,6 +3,8 @@
  *
  * Contract: built with the generated tg_fw_glue.h (model names, I/O sizes, I/O mode)
  * and tg_fw_samples.h (input bytes of every sample, back to back, in input order).
+ * I/O mode: TG_FW_IO_MODE 1 = arena, 2 = external (caller buffers), 0 = ask the model:
+ * arena if <prefix>_input(NULL, 0) is not NULL.
  * Output is one "TGFW ..." line per record; tinygen/harness/target.py parses it.
  * With -DTG_FW_PER_OP=1 the per-op hooks are compiled in and reported too.
  */
@@ -37,9 +39,6 @@ static void tg_fw_report_u64(tg_fw_line_t *line, uint64_t value)
 static void tg_fw_copy(uint8_t *dst, const uint8_t *src, uint32_t count)
 {
     uint32_t i;
-    if (dst == 0) {
-        return;  /* the baseline build's stand-in model has no buffers */
-    }
     for (i = 0; i < count; ++i) {
         dst[i] = src[i];
     }
@@ -50,9 +49,6 @@ static void tg_fw_report_output(uint32_t sample, uint32_t index, const uint8_t *
 {
     tg_fw_line_t line;
     uint32_t offset;
-    if (bytes == 0) {
-        return;
-    }
     for (offset = 0; offset < count; offset += TG_FW_OUT_CHUNK) {
         uint32_t n = count - offset < TG_FW_OUT_CHUNK ? count - offset : TG_FW_OUT_CHUNK;
         tg_fw_line_start(&line, "TGFW OUT");
@@ -116,14 +112,14 @@ int main(void)
 {
     static const uint32_t in_bytes[TG_FW_NUM_INPUTS] = {TG_FW_INPUT_BYTES_LIST};
     static const uint32_t out_bytes[TG_FW_NUM_OUTPUTS] = {TG_FW_OUTPUT_BYTES_LIST};
-#if !TG_FW_IO_ARENA
     static const uint32_t in_offset[TG_FW_NUM_INPUTS] = {TG_FW_INPUT_OFFSET_LIST};
     static const uint32_t out_offset[TG_FW_NUM_OUTPUTS] = {TG_FW_OUTPUT_OFFSET_LIST};
     /* Caller-owned I/O buffers for --io external, 8-byte aligned. */
     uint64_t io_storage[(TG_FW_IO_STORAGE_BYTES + 7u) / 8u];
     void *inputs[TG_FW_NUM_INPUTS];
     void *outputs[TG_FW_NUM_OUTPUTS];
-#endif
+    uint32_t io_arena = 0u;     /* 1: the I/O lives in the arena */
+    uint32_t io_missing = 0u;   /* arena buffers the model did not provide */
     const uint8_t *sample_bytes = tg_fw_samples;
     tg_fw_stamp_t before;
     tg_fw_stamp_t after;
@@ -146,20 +142,40 @@ int main(void)
     }
     op_calibration = tg_fw_ops_calibrate();
 #endif
+#if TG_FW_IO_MODE != 2
+    io_arena = TG_FW_INPUT(0, 0) != 0 ? 1u : 0u;
+#endif
+#if TG_FW_IO_MODE == 1
+    io_missing = io_arena ? 0u : 1u;
+#endif
+    for (i = 0; i < TG_FW_NUM_INPUTS; ++i) {
+        inputs[i] = (uint8_t *)io_storage + in_offset[i];
+#if TG_FW_IO_MODE != 2
+        if (io_arena) {
+            inputs[i] = TG_FW_INPUT(0, (int)i);
+            io_missing += inputs[i] == 0 ? 1u : 0u;
+        }
+#endif
+    }
+    for (i = 0; i < TG_FW_NUM_OUTPUTS; ++i) {
+        outputs[i] = (uint8_t *)io_storage + out_offset[i];
+#if TG_FW_IO_MODE != 2
+        if (io_arena) {
+            outputs[i] = TG_FW_OUTPUT(0, (int)i);
+            io_missing += outputs[i] == 0 ? 1u : 0u;
+        }
+#endif
+    }
     tg_fw_line_start(&line, "TGFW BEGIN");
     tg_fw_line_hex32(&line, TG_FW_NUM_SAMPLES);
     tg_fw_report_u64(&line, calibration);
     tg_fw_report_u64(&line, op_calibration);
+    tg_fw_line_hex32(&line, io_arena);
+    tg_fw_line_hex32(&line, io_missing);
     tg_fw_line_end(&line);
-
-#if !TG_FW_IO_ARENA
-    for (i = 0; i < TG_FW_NUM_INPUTS; ++i) {
-        inputs[i] = (uint8_t *)io_storage + in_offset[i];
+    if (io_missing != 0u) {
+        return 3;   /* arena I/O asked for, but the model has no buffer to give */
     }
-    for (i = 0; i < TG_FW_NUM_OUTPUTS; ++i) {
-        outputs[i] = (uint8_t *)io_storage + out_offset[i];
-    }
-#endif
 
     for (sample = 0; sample < TG_FW_NUM_SAMPLES; ++sample) {
         uint32_t sp;
@@ -168,11 +184,7 @@ int main(void)
         uint32_t stack;
         int rc;
         for (i = 0; i < TG_FW_NUM_INPUTS; ++i) {
-#if TG_FW_IO_ARENA
-            tg_fw_copy((uint8_t *)TG_FW_INPUT(0, (int)i), sample_bytes, in_bytes[i]);
-#else
-            tg_fw_copy((uint8_t *)io_storage + in_offset[i], sample_bytes, in_bytes[i]);
-#endif
+            tg_fw_copy((uint8_t *)inputs[i], sample_bytes, in_bytes[i]);
             sample_bytes += in_bytes[i];
         }
         /* Paint everything below main's frame; the model's frames land there. */
@@ -181,12 +193,10 @@ int main(void)
             *(volatile uint32_t *)word = TG_FW_PAINT;
         }
         tg_fw_open(&before);
-#if TG_FW_IO_ARENA
-        rc = TG_FW_RUN(0, 0, 0);
-#else
-        /* via void *: converts to whichever pointer-to-pointer type the header declares */
+        /* One call for both modes, so no branch joins the count: with the I/O in the
+         * arena the model ignores the pointer arrays. Passed via void * to convert to
+         * whichever pointer-to-pointer type the header declares. */
         rc = TG_FW_RUN(0, (void *)inputs, (void *)outputs);
-#endif
         tg_fw_close(&after);
         /* Scan inline too: a called function's frame would land on the painted words. */
         word = tg_fw_stack_bottom;
@@ -204,12 +214,7 @@ int main(void)
         tg_fw_line_hex32(&line, overflow);
         tg_fw_line_end(&line);
         for (i = 0; i < TG_FW_NUM_OUTPUTS; ++i) {
-#if TG_FW_IO_ARENA
-            tg_fw_report_output(sample, i, (const uint8_t *)TG_FW_OUTPUT(0, (int)i),
-                                out_bytes[i]);
-#else
             tg_fw_report_output(sample, i, (const uint8_t *)outputs[i], out_bytes[i]);
-#endif
         }
 #if TG_FW_PER_OP
         tg_fw_ops_report(sample, &disagree, &out_of_range);
