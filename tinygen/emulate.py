@@ -317,11 +317,17 @@ def emulate(tree_dir, prefix: str, cpu: str, inputs: list[list[bytes]], *,
             stack_bytes: int = target.DEFAULT_STACK_BYTES, work_dir=None) -> dict:
     """Build the tree for `cpu`, run every sample of `inputs` on QEMU, return the figures.
 
-    inputs[s][i] is the raw bytes of input i for sample s. The result is JSON-ready except
-    "outputs" (outputs[s][o] = raw bytes of output o); "bit_exact" is None for the caller
-    to fill in. Instructions are exact counts of executed instructions (not cycles) for
-    sample 0; "instructions_per_sample" has all. flash/RAM are the model's alone.
-    work_dir keeps the build (images, maps) there; by default a temporary one is removed.
+    inputs[s][i] is the raw bytes of input i for sample s. requant_float must match the
+    tree's TG_WITH_FLOAT_REQUANT (it sets it only where the tree leaves it unset) and
+    decides whether float symbols are allowed. io: None asks the model at run time,
+    "arena" or "external" insist. opt: -Os, -O2, ... for every file. timeout: seconds per
+    QEMU run. work_dir keeps the build (images, maps) there; by default a temporary one is
+    removed.
+
+    The result is JSON-ready except "outputs" (outputs[s][o] = raw bytes of output o);
+    "bit_exact" is None for the caller to fill in. Instructions are exact counts of
+    executed instructions (not cycles) for sample 0; "instructions_per_sample" has all.
+    flash/RAM are the model's alone. docs/target.md has every key.
     """
     tools = find_toolchain()
     board = target.board_for(cpu)
