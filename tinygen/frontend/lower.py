@@ -196,6 +196,11 @@ class Lowering:
         v = self.view
         for name in v.outputs:
             self.b.at(name, "graph output")
+
+            def fail(reason: str) -> TinygenError:  # about the graph, not about one node
+                return TinygenError(reason, file=v.path)
+            if name not in self.env:
+                raise fail(f"graph output '{name}' has no value")
             val = self.value(name)
             if isinstance(val, Pending):
                 val = self.settle(name, val)
@@ -204,14 +209,13 @@ class Lowering:
             elif isinstance(val, Int):
                 t, onnx_dt = val.t, None
             else:
-                raise self.error(f"graph output '{name}' is not computed from quantized "
-                                 "tensors")
+                raise fail(f"graph output '{name}' is not computed from quantized tensors")
             if t.is_const:
-                raise self.error(f"graph output '{name}' is a constant")
+                raise fail(f"graph output '{name}' is a constant")
             declared = v.shapes.get(name)
             if declared is not None and tuple(declared) != tuple(t.shape):
-                raise self.error(f"graph output '{name}' is declared {list(declared)} but "
-                                 f"computes {list(t.shape)}")
+                raise fail(f"graph output '{name}' is declared {list(declared)} but computes "
+                           f"{list(t.shape)}")
             src = "int32" if t.dtype == "int32" else (t.quant.src_dtype if t.quant else "int8")
             if onnx_dt is None:
                 onnx_dt = src
