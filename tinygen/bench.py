@@ -292,9 +292,10 @@ def render(results: list[ModelBench], with_speed: bool) -> str:
         out += ["## Host speed", "",
                 "Per-inference times measured in this one run on this machine (best of "
                 f"{BATCHES} batches of about {BATCH_SECONDS * 1000:.0f} ms; noisy, compare "
-                "the ratios, not the absolute times). C run: the emitted <prefix>_run alone "
-                "(-O2, called through cffi); Session.run adds quantize/dequantize and the "
-                "numpy glue; onnxruntime: InferenceSession.run on one thread. Ratio < 1: "
+                "the ratios, not the absolute times). C run: the emitted <prefix>_run (-O2, "
+                "called through cffi, its input bytes refilled before each call); Session.run "
+                "adds quantize/dequantize and the numpy glue; onnxruntime: "
+                "InferenceSession.run on one thread, same float input. Ratio < 1: "
                 "the C is faster. Instructions: callgrind, inside <prefix>_run, one "
                 "inference (exact for this compiler).", "", speed_table(results), ""]
         notes = [f"- {mb.name}: speed not measured ({mb.speed_note})"
