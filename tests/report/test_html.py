@@ -11,6 +11,7 @@ from tinygen import cli
 from tinygen.codegen.emit import render_tree
 from tinygen.compiler import BuildOptions, compile_model, summary
 from tinygen.report.html import render_report, write_report
+from tinygen.report.plan_view import compare_planners
 
 
 class TagCollector(HTMLParser):
@@ -141,3 +142,16 @@ def test_hostile_names_are_escaped(hostile_path, tmp_path):
 def test_plan_json_unchanged_by_report(tmp_path, capsys, pump):
     assert cli.main(["plan", str(PUMP), "--json"]) == 0
     assert json.loads(capsys.readouterr().out) == summary(pump)
+
+
+def test_planner_that_does_not_fit_the_regions_is_shown_not_raised():
+    c = compile_model(str(PUMP), BuildOptions(regions=[("fast", 2048), ("slow", 1024)]))
+    doc = render_report(c, None, None, "f")
+    text = "".join(parse(doc).text)
+    # no reuse needs every buffer at once: more than the 3072 B the two regions hold;
+    # first-fit (2944 B in one arena) does not split into 2048 + 1024 either
+    assert summary(c)["naive_bytes"] > 3072
+    rows = compare_planners(c)
+    assert [r.planner for r in rows if r.arena is None] == ["first-fit", "naive"] * 2
+    assert text.count("fits in no region") == 4
+    assert f"This build's arena, {summary(c)['arena_bytes']} B, is the smallest" in text
