@@ -1,0 +1,182 @@
+"""Every bad input through the command line: exit 2, one line, no traceback, no output.
+
+The corpus comes from make_corpus.py, written into a temporary folder. The line format is
+the one docs/cli.md promises: `tinygen: error: FILE: node 'N': op OP: reason`.
+
+Each case runs in a process of its own with its own exit code, stdout and stderr. Starting
+`python -m tinygen` costs about a second (importing onnx), so the whole corpus runs in
+children forked from this process, which call the same `tinygen.cli.main` that
+`python -m tinygen` calls; a representative subset also runs as real
+`python -m tinygen` subprocesses.
+"""
+from __future__ import annotations
+
+import io
+import os
+import re
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import make_corpus  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[2]
+CASES = {c.name: c for c in make_corpus.cases()}
+# Errors about a flag rather than the file: the line has no file to name.
+FLAG_ERRORS = {"input_shape_bad_syntax", "bad_prefix_keyword", "bad_prefix_digit",
+               "bad_size_flag"}
+# One case per kind of failure, run as real `python -m tinygen` subprocesses.
+SUBPROCESS_CASES = ["truncated_50", "float_model", "unsupported_op", "scale_nan",
+                    "concat_axis_out_of_range", "arena_limit"]
+LINE = re.compile(r"^tinygen: error: (?:(?P<file>[^:]+): )?(?:node '(?P<node>[^']*)': )?"
+                  r"(?:op (?P<op>\S+): )?(?P<reason>.+)$")
+
+
+def tinygen(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    env.pop("TINYGEN_TRACEBACK", None)
+    return subprocess.run([sys.executable, "-m", "tinygen", *args], capture_output=True,
+                          text=True, env=env, cwd=cwd or ROOT, timeout=600)
+
+
+def forked(*args: str) -> subprocess.CompletedProcess:
+    """Run `tinygen args` in a forked child of this process (POSIX), like a subprocess."""
+    if not hasattr(os, "fork"):
+        return tinygen(*args)
+    with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
+        sys.stdout.flush()
+        sys.stderr.flush()
+        pid = os.fork()
+        if pid == 0:  # the child: the CLI with fds 1 and 2 on the files, then exit
+            code = 99
+            try:
+                os.dup2(out.fileno(), 1)
+                os.dup2(err.fileno(), 2)
+                sys.stdout = io.TextIOWrapper(os.fdopen(1, "wb", closefd=False))
+                sys.stderr = io.TextIOWrapper(os.fdopen(2, "wb", closefd=False))
+                os.environ.pop("TINYGEN_TRACEBACK", None)
+                from tinygen.cli import main
+                code = main(list(args))
+            except BaseException:  # noqa: B036 - report anything, as a real process would
+                import traceback
+                traceback.print_exc()
+            finally:
+                sys.stdout.flush()
+                sys.stderr.flush()
+                os._exit(code if isinstance(code, int) else 98)
+        _, status = os.waitpid(pid, 0)
+        out.seek(0)
+        err.seek(0)
+        return subprocess.CompletedProcess(args, os.waitstatus_to_exitcode(status),
+                                           out.read().decode(), err.read().decode())
+
+
+@pytest.fixture(scope="module")
+def results(tmp_path_factory):
+    """Run every case once; {name: (case, model path, out dir, completed process)}."""
+    # imported once here, shared by every forked child
+    import onnx.reference  # noqa: F401
+
+    import tinygen.cli  # noqa: F401
+    import tinygen.codegen.emit  # noqa: F401
+    base = tmp_path_factory.mktemp("corpus")
+    done = {}
+    for case, path in make_corpus.write_corpus(base / "models"):
+        out = base / "out" / case.name / "tree"
+        out.parent.mkdir(parents=True)
+        done[case.name] = (case, path, out, forked("emit", str(path), "-o", str(out),
+                                                   *case.args))
+    return done
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_bad_input_gives_one_clear_line(results, name):
+    case, path, out, r = results[name]
+    assert r.returncode == 2, (r.returncode, r.stderr)
+    assert r.stdout == ""
+    lines = r.stderr.splitlines()
+    assert len(lines) == 1, r.stderr
+    line = lines[0]
+    assert "Traceback" not in r.stderr and "internal error" not in line, line
+    m = LINE.match(line)
+    assert m, line
+    if name not in FLAG_ERRORS:
+        assert m["file"] == str(path), line
+    if case.node is not None:
+        assert m["node"] == case.node, line
+    if case.op is not None:
+        assert m["op"] == case.op, line
+    assert case.reason.lower() in m["reason"].lower(), line
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_bad_input_leaves_no_output(results, name):
+    _, _, out, _ = results[name]
+    assert not out.exists()
+    assert list(out.parent.iterdir()) == []  # no half-written temporary folder either
+
+
+@pytest.mark.parametrize("name", SUBPROCESS_CASES)
+def test_real_subprocess_prints_the_same_line(results, name, tmp_path):
+    case, path, _, r = results[name]
+    out = tmp_path / "tree"
+    real = tinygen("emit", str(path), "-o", str(out), *case.args)
+    assert (real.returncode, real.stdout, real.stderr) == (r.returncode, r.stdout, r.stderr)
+    assert not out.exists()
+
+
+def test_corpus_files_are_small(results):
+    sizes = [p.stat().st_size for _, p, _, _ in results.values() if p.is_file()]
+    assert sizes and max(sizes) < 16 * 1024
+
+
+def _good_model(tmp_path: Path) -> Path:
+    path = tmp_path / "good.onnx"
+    make_corpus.save(make_corpus.qdq_model())(path)
+    return path
+
+
+def test_existing_outdir_is_untouched_without_force(tmp_path):
+    good = _good_model(tmp_path)
+    bad = tmp_path / "bad.onnx"
+    bad.write_bytes(b"not a model")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "keep.txt").write_text("mine")
+    for args in (["emit", str(good), "-o", str(out)],             # exists, no --force
+                 ["emit", str(bad), "-o", str(out)],              # fails before writing
+                 ["emit", str(bad), "-o", str(out), "--force"]):  # fails, even with --force
+        r = forked(*args)
+        assert r.returncode == 2 and len(r.stderr.splitlines()) == 1, r.stderr
+        assert sorted(p.name for p in out.iterdir()) == ["keep.txt"]
+        assert (out / "keep.txt").read_text() == "mine"
+    assert "--force" in forked("emit", str(good), "-o", str(out)).stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["bad.onnx", "good.onnx", "out"]
+
+
+def test_force_replaces_outdir_whole(tmp_path):
+    good = _good_model(tmp_path)
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "keep.txt").write_text("mine")
+    r = forked("emit", str(good), "-o", str(out), "--force")
+    assert r.returncode == 0, r.stderr
+    names = sorted(p.name for p in out.iterdir())
+    assert "keep.txt" not in names and "model.c" in names
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["good.onnx", "out"]  # no temp left
+
+
+def test_other_verbs_and_json_report_bad_input_the_same_way(tmp_path):
+    bad = tmp_path / "bad.onnx"
+    bad.write_bytes(b"\x08\x07garbage")
+    for args in (["check", str(bad), "--samples", "2"], ["plan", str(bad), "--json"],
+                 ["emit", str(bad), "-o", str(tmp_path / "o"), "--json"]):
+        r = forked(*args)
+        assert r.returncode == 2 and r.stdout == "", (args, r.stdout)
+        lines = r.stderr.splitlines()
+        assert len(lines) == 1 and lines[0].startswith(f"tinygen: error: {bad}: "), lines
+    assert not (tmp_path / "o").exists()
