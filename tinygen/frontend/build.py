@@ -44,6 +44,9 @@ class Builder:
 
     # -- tensors ----------------------------------------------------------------------
     def fresh(self, base: str) -> str:
+        """A tensor name not used yet. Never contains '@': the passes name the tensors they
+        derive `name@suffix`, so an ONNX name can never collide with one of those."""
+        base = base.replace("@", "%40")
         name = base
         while name in self.graph.tensors:
             self._counter += 1
