@@ -207,7 +207,6 @@ def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
     for n in nodes:
         foldable = n.domain in ("", "ai.onnx") and n.op_type in FOLDABLE
         if n.op_type == "Shape" and n.input[0] in shapes and n.input[0] not in consts:
-            consts[n.input[0] + "#shape"] = np.array(shapes[n.input[0]], dtype=np.int64)
             start = next((helper.get_attribute_value(a) for a in n.attribute
                           if a.name == "start"), 0)
             end = next((helper.get_attribute_value(a) for a in n.attribute if a.name == "end"),
