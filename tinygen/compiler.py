@@ -105,11 +105,14 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
     graph = check_accumulators(graph)
     plan = plan_arena(graph, opts)
     macs = count_macs(graph)
-    weights = constant_bytes(graph)
-    if opts.flash_limit is not None and weights > opts.flash_limit:
-        raise TinygenError(f"weights need {weights} bytes of flash, over --flash-limit "
-                           f"{opts.flash_limit}", file=path)
-    return Compiled(graph, plan, opts, int(sum(macs)), weights, macs)
+    c = Compiled(graph, plan, opts, int(sum(macs)), constant_bytes(graph), macs)
+    from tinygen.codegen.emit import render_tree  # sets c.const_bytes: every flash constant
+    render_tree(c, "")
+    if opts.flash_limit is not None and c.const_bytes > opts.flash_limit:
+        raise TinygenError(f"constants need {c.const_bytes} bytes of flash (weights "
+                           f"{c.weights_bytes}), over --flash-limit {opts.flash_limit}",
+                           file=path)
+    return c
 
 
 def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
