@@ -60,10 +60,10 @@ def add_build_flags(p: argparse.ArgumentParser) -> None:
 
 
 def build_options(args):
-    from tinygen.codegen.cfmt import check_identifier
+    from tinygen.codegen.cfmt import check_prefix
     from tinygen.compiler import BuildOptions
     try:
-        check_identifier(args.prefix, "--prefix")
+        check_prefix(args.prefix)
     except ValueError as exc:
         raise TinygenError(str(exc)) from None
     return BuildOptions(requant=args.requant, prefix=args.prefix,

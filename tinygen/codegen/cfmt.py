@@ -21,25 +21,35 @@ C_TYPES = {"int8": "int8_t", "uint8": "uint8_t", "int16": "int16_t", "int32": "i
 def c_comment_text(text: str, limit: int = 120) -> str:
     """Text from the model made safe inside a /* */ comment on one line.
 
-    Only printable ASCII survives (anything else becomes \\xNN or \\uNNNN); comment
-    delimiters, line splices and trigraph starts are broken up.
+    Only printable ASCII other than the backslash survives (anything else becomes \\xNN,
+    \\uNNNN or \\UNNNNNNNN, so no text ends in a line splice); comment delimiters and
+    trigraph starts are broken up.
     """
     out = []
     for ch in str(text):
         code = ord(ch)
-        if ch == "\\":
-            out.append("\\\\")
-        elif 32 <= code < 127:
+        if 32 <= code < 127 and ch != "\\":
             out.append(ch)
         elif code < 256:
             out.append(f"\\x{code:02x}")
-        else:
+        elif code < 0x10000:
             out.append(f"\\u{code:04x}")
+        else:
+            out.append(f"\\U{code:08x}")
     s = "".join(out)
-    s = s.replace("*/", "* /").replace("/*", "/ *").replace("??", "?\\?").replace("//", "/ /")
+    s = s.replace("*/", "* /").replace("/*", "/ *").replace("//", "/ /")
+    s = re.sub(r"\?(?=\?)", "?\\\\", s)  # no "??" left: ???/ becomes ?\?\?/
     if len(s) > limit:
         s = s[: limit - 3] + "..."
     return s
+
+
+# <P.h> would shadow these when the tree is on the include path (C99 7.1.2).
+C_STD_HEADERS = {
+    "assert", "complex", "ctype", "errno", "fenv", "float", "inttypes", "iso646", "limits",
+    "locale", "math", "setjmp", "signal", "stdarg", "stdbool", "stddef", "stdint", "stdio",
+    "stdlib", "string", "tgmath", "time", "wchar", "wctype",
+}
 
 
 def check_identifier(name: str, what: str) -> str:
@@ -48,6 +58,24 @@ def check_identifier(name: str, what: str) -> str:
                          "(letters, digits, _; not starting with a digit; at most 31; not a "
                          "keyword)")
     return name
+
+
+def check_prefix(prefix: str) -> str:
+    """The --prefix names files (P.c, P.h) and every model symbol (P_run, P_H, ...).
+
+    A C identifier that starts with a letter (a leading underscore is reserved, C99 7.1.3),
+    outside the runtime's tg_ / TG_ namespace and not the name of a standard header.
+    """
+    check_identifier(prefix, "--prefix")
+    low = prefix.lower()
+    if prefix.startswith("_"):
+        raise ValueError(f"--prefix '{prefix}' starts with '_' (reserved in C)")
+    if low == "tg" or low.startswith("tg_"):
+        raise ValueError(f"--prefix '{prefix}' is in the tg_ namespace of the runtime kernels")
+    if low in C_STD_HEADERS:
+        raise ValueError(f"--prefix '{prefix}' would make {prefix}.h, which shadows the "
+                         f"standard header <{low}.h>")
+    return prefix
 
 
 def c_int(v) -> str:

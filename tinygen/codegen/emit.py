@@ -16,7 +16,14 @@ import jinja2
 import numpy as np
 
 import tinygen
-from tinygen.codegen.cfmt import C_TYPES, ParamsWriter, c_array, c_comment_text, c_float
+from tinygen.codegen.cfmt import (
+    C_TYPES,
+    ParamsWriter,
+    c_array,
+    c_comment_text,
+    c_float,
+    check_prefix,
+)
 from tinygen.compiler import Compiled
 from tinygen.errors import TinygenError
 from tinygen.kernels import KERNELS
@@ -187,6 +194,10 @@ def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
 
 def render_tree(c: Compiled, flags: str) -> dict[str, str]:
     """All files of the tree as {name: text}, deterministic for the same input."""
+    try:
+        check_prefix(c.options.prefix)
+    except ValueError as exc:
+        raise TinygenError(str(exc)) from None
     w = TreeWriter(c, flags)
     env = _env()
     ctx = w.context()  # renders calls first so the constants/families are known
