@@ -86,7 +86,8 @@ class TreeWriter:
         return f"({'const ' if const else ''}{ctype} *){self.ptr(name)}"
 
     # -- calls --------------------------------------------------------------------------
-    def op_lines(self, k: int) -> list[str]:
+    def op_lines(self, k: int, index: int) -> list[str]:
+        """C lines for graph op k, the index-th kernel call of the run function."""
         op = self.g.ops[k]
         if op.kind == "copy":
             t = self.g.tensors[op.outputs[0]]
@@ -95,15 +96,15 @@ class TreeWriter:
         kern = KERNELS[call.func]
         self.families.add(kern.family)
         if call.func == "tg_lut":
-            tname = f"{self.P}_table{k}"
+            tname = f"{self.P}_table{index}"
             self.pw.decls.append(c_array(tname, call.params.table))
             self.pw.const_bytes += 256
             return [f"tg_lut({tname}, {self.typed(call.args[0], True)}, "
                     f"{self.typed(call.args[1], False)}, {call.params.count});"]
-        pname = self.pw.struct(kern.struct, f"{self.P}_op{k}", call.params)
+        pname = self.pw.struct(kern.struct, f"{self.P}_op{index}", call.params)
         if call.func == "tg_concat":
             parts = ", ".join(self.typed(n, True) for n in call.args[:-1])
-            arr = f"{self.P}_parts{k}"
+            arr = f"{self.P}_parts{index}"
             return [f"{{ const int8_t *const {arr}[{len(call.args) - 1}] = {{{parts}}};",
                     f"  tg_concat(&{pname}, {arr}, {self.typed(call.args[-1], False)}); }}"]
         args = [self.typed(n, True) if n else "NULL" for n in call.args[:-1]]
@@ -159,7 +160,7 @@ class TreeWriter:
             calls.append({"index": len(calls), "op_index": k,
                           "comment": f"{op.attrs['call'].func if 'call' in op.attrs else op.kind}"
                                      f" <- {where}",
-                          "lines": self.op_lines(k)})
+                          "lines": self.op_lines(k, len(calls))})
         pro, epi = self.flips(g.inputs, "input"), self.flips(g.outputs, "output")
         if c.options.io == "external":
             # restore the caller's uint8 inputs (they were shifted in place)
