@@ -171,6 +171,8 @@ def cmd_check(args) -> int:
         verdict = "bit-exact" if res.bit_exact else \
             f"MISMATCH in {res.mismatched_elements} of {res.total_elements} elements"
         _say(f"{args.model}: {res.samples} samples, C vs reference: {verdict}")
+        if getattr(res, "problem", None):
+            _say(f"sanitizer: {res.problem}")
         if res.onnxruntime is not None:
             o = res.onnxruntime
             _say(f"vs onnxruntime: max |diff| {o['max_abs_diff']} LSB, "
