@@ -251,12 +251,6 @@ def _gemm_mismatch():
     return replace_init(qdq_parts(), "fc_w", rng.integers(-9, 9, (20, 3)).astype(np.int8))
 
 
-def _declared_shape_conflict() -> onnx.ModelProto:
-    nodes, inits, ins, _ = qdq_parts()
-    y = helper.make_tensor_value_info("y", TensorProto.FLOAT, [1, 7])
-    return build(nodes, inits, ins, [y])
-
-
 def _reshape_bad() -> onnx.ModelProto:
     nodes, inits, ins, outs = qdq_parts()
     nodes = [helper.make_node("Reshape", ["p", "shape"], ["f"], name="reshape1")
@@ -440,8 +434,6 @@ def cases() -> list[Case]:
         Case("conv_channels_mismatch", save_parts(_conv_channel_mismatch()), "",
              node="conv1", op="Conv"),
         Case("gemm_inner_mismatch", save_parts(_gemm_mismatch()), "", node="fc1", op="Gemm"),
-        Case("declared_output_shape_conflict", save(_declared_shape_conflict()),
-             "declared [1, 7] but computes [1, 3]"),
         Case("reshape_wrong_size", save(_reshape_bad()), "reshape", node="reshape1",
              op="Reshape"),
         Case("concat_axis_out_of_range", save(_concat_axis()), "axis", node="cat1",

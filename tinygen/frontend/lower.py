@@ -212,10 +212,6 @@ class Lowering:
                 raise fail(f"graph output '{name}' is not computed from quantized tensors")
             if t.is_const:
                 raise fail(f"graph output '{name}' is a constant")
-            declared = v.shapes.get(name)
-            if declared is not None and tuple(declared) != tuple(t.shape):
-                raise fail(f"graph output '{name}' is declared {list(declared)} but computes "
-                           f"{list(t.shape)}")
             src = "int32" if t.dtype == "int32" else (t.quant.src_dtype if t.quant else "int8")
             if onnx_dt is None:
                 onnx_dt = src
