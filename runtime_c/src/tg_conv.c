@@ -1,30 +1,41 @@
-/* tg_conv.c - direct (im2col-free) convolution, contract in tg_conv.h.
+/* tg_conv.c - direct convolution, channels-last, contract in tg_conv.h.
  *
- * Accumulators are int32 and are not checked: x - in_zp and w - w_zp both lie in [-255, 255],
- * and the compiler only emits a convolution whose |bias| + k_h*k_w*(in_c/groups)*255*255 fits
- * in int32, so no partial sum can overflow. Element offsets are int32 (tensors on the target
- * are far below 2^31 elements).
- * The padding bounds are worked out once per output position (the valid ky/kx range), so the
- * tap loops never test for padding; the innermost loop runs over contiguous input channels.
- * Cores with the DSP extension (Cortex-M4/M7/M33...) take the channel dot product four
- * int8 pairs at a time with the ACLE __sxtab16/__smlad intrinsics.
+ * tg_conv works on two output pixels at a time. It gathers each pixel's receptive field
+ * ("patch") in weight order (ky, kx, channel of the group) into a small stack buffer as
+ * int16 x - in_zp, padding as 0, so the zero point and the padding are dealt with once per
+ * pixel instead of once per output channel. Each output channel is then a plain dot product
+ * of the patch with the channel's weight row, taken for two channels and both pixels at
+ * once: every weight word loaded serves two pixels, every patch word two channels. A weight
+ * zero point comes off at the end: sum x'(w - wz) = sum x'w - wz * sum x' (x' = x - in_zp).
+ * A patch longer than TG_CONV_PATCH is taken in pieces; partial sums wait in a stack array.
+ * tg_dwconv (multiplier 1) runs four channels at a time: one input word holds four
+ * neighbouring channels, and a per-call table of int16 weights in [tap][channel] order
+ * holds their weights side by side. The valid tap range is worked out once per pixel, so
+ * the tap loops never test for padding.
+ *
+ * Accumulators are int32 and are not checked: the compiler only emits a convolution whose
+ * |bias| + k_h*k_w*(in_c/groups)*255*255 fits in int32; every partial sum below is a part of
+ * sum x'(w - wz) or of sum x'w and - wz*sum x', each within that bound. Element offsets are
+ * int32 (tensors on the target are far below 2^31 elements).
+ * Cores with the DSP extension (Cortex-M4/M7/M33...) run the inner loops as short inline
+ * assembly (gcc -Os would spill their twelve registers) with SXTB16/SMLAD and SMLAxy.
+ * Other cores, other compilers and unoptimized builds (where gcc cannot give the assembly
+ * twelve registers) run plain C loops on the same buffers.
  */
 #include "tg_conv.h"
 
 #include <string.h>
 
-#if defined(__ARM_FEATURE_DSP) && defined(__ARM_FEATURE_SIMD32)
-#include <arm_acle.h>
+#if defined(__ARM_FEATURE_DSP) && defined(__ARM_FEATURE_SIMD32) && defined(__GNUC__) \
+    && defined(__OPTIMIZE__)
 #define TG_CONV_DSP 1
 #else
 #define TG_CONV_DSP 0
 #endif
 
-/* The valid taps of one output position: k in [lo, hi) reads input base + k*dil. */
-typedef struct {
-    int32_t ky0, ky1, kx0, kx1;
-    int32_t base_y, base_x;
-} tg_conv_window_t;
+#define TG_CONV_PATCH 128  /* patch elements of one pixel held at once (a multiple of 4) */
+#define TG_CONV_BLOCK 32   /* output channels whose partial sums are kept between pieces */
+#define TG_DW_TABLE 512    /* int16 weights of one depthwise channel block (1 KiB) */
 
 /* Taps k in [*lo, *hi) keep base + k*dil inside [0, in); an empty range has *lo == *hi. */
 static void tg_conv_tap_range(int32_t base, int32_t dil, int32_t k, int32_t in,
@@ -42,6 +53,12 @@ static void tg_conv_tap_range(int32_t base, int32_t dil, int32_t k, int32_t in,
     *hi = end > first ? end : first;
 }
 
+/* The valid taps of one output position: k in [lo, hi) reads input base + k*dil. */
+typedef struct {
+    int32_t ky0, ky1, kx0, kx1;
+    int32_t base_y, base_x;
+} tg_conv_window_t;
+
 static tg_conv_window_t tg_conv_window(const tg_conv_params_t *p, int32_t oy, int32_t ox)
 {
     tg_conv_window_t win;
@@ -52,120 +69,321 @@ static tg_conv_window_t tg_conv_window(const tg_conv_params_t *p, int32_t oy, in
     return win;
 }
 
-#if TG_CONV_DSP
-static inline uint32_t tg_conv_ror8(uint32_t v)
+/* y[idx + q] = output channel c + q from acc[q], q < count (requantized, or raw int32). */
+static void tg_conv_put(const tg_requant_t *rq, void *y, int32_t idx, const int32_t *acc,
+                        int32_t c, int32_t count)
 {
-    return (v >> 8) | (v << 24);
+    int32_t q;
+    if (rq == NULL) {
+        memcpy((int32_t *)y + idx, acc, (size_t)count * sizeof *acc);
+        return;
+    }
+    for (q = 0; q < count; ++q) {
+        ((int8_t *)y)[idx + q] = tg_requant(acc[q], rq, c + q);
+    }
 }
 
-/* Both int16 lanes set to -zp; x - zp then fits a lane (|x - zp| <= 255). */
-static inline int16x2_t tg_conv_neg_pair(int32_t zp)
+#if TG_CONV_DSP
+static inline uint32_t tg_conv_load32(const void *src)
 {
-    return (int16x2_t)((uint32_t)(uint16_t)(-zp) * 0x00010001u);
+    uint32_t v;
+    memcpy(&v, src, sizeof v);
+    return v;
+}
+
+/* off + bytes 0 and 2 of v, and off + bytes 1 and 3, sign-extended into int16 lanes. */
+static inline void tg_conv_widen4(uint32_t v, uint32_t off, uint32_t *even, uint32_t *odd)
+{
+    __asm__("sxtab16 %0, %2, %3\n\t"
+            "sxtab16 %1, %2, %3, ror #8"
+            : "=&r"(*even), "=r"(*odd) : "r"(off), "r"(v));
+}
+
+/* Both int16 lanes set to -zp. */
+static inline uint32_t tg_conv_neg_pair(int32_t zp)
+{
+    return (uint32_t)(uint16_t)(-zp) * 0x00010001u;
 }
 #endif
 
-/* sum over i < len of (x[i] - xz) * (w[i] - wz). */
-static inline int32_t tg_conv_dot(const int8_t *x, const int8_t *w, int32_t len, int32_t xz,
-                                  int32_t wz)
+/* ---- tg_conv ------------------------------------------------------------------------- */
+
+/* Patch elements [k0, k0 + len) of output pixel pix (flat over n, out_h, out_w), group g,
+ * as int8. Element k is tap k / in_pg, channel g*in_pg + k % in_pg; padding reads as in_zp. */
+static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, int32_t pix, int32_t g,
+                           int32_t k0, int32_t len, int8_t *dst)
 {
-    int32_t acc = 0;
+    const int32_t in_pg = p->in_c / p->groups;
+    const int32_t ox = pix % p->out_w;
+    const int32_t oy = (pix / p->out_w) % p->out_h;
+    const int32_t b = pix / (p->out_w * p->out_h);
+    const tg_conv_window_t win = tg_conv_window(p, oy, ox);
+    /* Neighbouring taps of one kernel row are neighbours in x too: copy them as one run. */
+    const int taps_adjacent = p->dil_w == 1 && in_pg == p->in_c;
+    const int32_t end = k0 + len;
+    int32_t k = k0;
+    while (k < end) {
+        const int32_t tap = k / in_pg;
+        const int32_t ci = k - tap * in_pg;
+        const int32_t ky = tap / p->k_w;
+        const int32_t kx = tap - ky * p->k_w;
+        const int row_valid = ky >= win.ky0 && ky < win.ky1;
+        int32_t run;
+        if (!row_valid || kx >= win.kx1) {
+            run = (p->k_w - kx) * in_pg - ci;  /* the rest of this kernel row is padding */
+        } else if (kx < win.kx0) {
+            run = (win.kx0 - kx) * in_pg - ci;
+        } else {
+            run = (taps_adjacent ? win.kx1 - kx : 1) * in_pg - ci;
+        }
+        run = run < end - k ? run : end - k;
+        if (!row_valid || kx < win.kx0 || kx >= win.kx1) {
+            memset(dst, (int8_t)p->in_zp, (size_t)run);
+        } else {
+            const int32_t iy = win.base_y + ky * p->dil_h;
+            const int32_t ix = win.base_x + kx * p->dil_w;
+            memcpy(dst, x + ((b * p->in_h + iy) * p->in_w + ix) * p->in_c + g * in_pg + ci,
+                   (size_t)run);
+        }
+        dst += run;
+        k += run;
+    }
+}
+
+/* raw (len int8, padding already in_zp) -> xw, int16 x - in_zp. The DSP path stores each
+ * group of four elements as lanes 0,2 then 1,3 (what SXTB16 makes of a weight word); a last
+ * partial group ends at element len - 1 and has the elements before len & ~3 set to 0, so it
+ * pairs with the weight word at len - 4. */
+static void tg_conv_widen_patch(const int8_t *raw, int32_t len, int32_t in_zp, int16_t *xw)
+{
     int32_t i = 0;
 #if TG_CONV_DSP
-    /* Four taps per step: bytes 0,2 and bytes 1,3 widen to int16 pairs for two SMLADs. */
-    const int16x2_t x_off = tg_conv_neg_pair(xz);
-    const int16x2_t w_off = tg_conv_neg_pair(wz);
+    const uint32_t off = tg_conv_neg_pair(in_zp);
+    uint32_t pair[2];
     for (; i + 4 <= len; i += 4) {
-        uint32_t xv;
-        uint32_t wv;
-        memcpy(&xv, x + i, sizeof xv);
-        memcpy(&wv, w + i, sizeof wv);
-        acc = __smlad(__sxtab16(x_off, (int8x4_t)xv), __sxtab16(w_off, (int8x4_t)wv), acc);
-        acc = __smlad(__sxtab16(x_off, (int8x4_t)tg_conv_ror8(xv)),
-                      __sxtab16(w_off, (int8x4_t)tg_conv_ror8(wv)), acc);
+        tg_conv_widen4(tg_conv_load32(raw + i), off, &pair[0], &pair[1]);
+        memcpy(xw + i, pair, sizeof pair);
+    }
+    if (i < len && len >= 4) {
+        int8_t last[4];
+        memcpy(last, raw + len - 4, sizeof last);
+        memset(last, (int8_t)in_zp, (size_t)(i + 4 - len));  /* already in the groups before */
+        tg_conv_widen4(tg_conv_load32(last), off, &pair[0], &pair[1]);
+        memcpy(xw + i, pair, sizeof pair);
+        return;
     }
 #endif
-    for (; i < len; ++i) {
-        acc += ((int32_t)x[i] - xz) * ((int32_t)w[i] - wz);
-    }
-    return acc;
-}
-
-/* Inlined twice, so the w_zp == NULL copy drops the weight offset entirely. */
-static inline int32_t tg_conv_dot_wzp(const int8_t *x, const int8_t *w, int32_t len,
-                                      int32_t xz, const int32_t *w_zp, int32_t c)
-{
-    return w_zp == NULL ? tg_conv_dot(x, w, len, xz, 0) : tg_conv_dot(x, w, len, xz, w_zp[c]);
-}
-
-static inline void tg_conv_store(const tg_requant_t *rq, void *y, int32_t idx, int32_t acc,
-                                 int32_t c)
-{
-    if (rq != NULL) {
-        ((int8_t *)y)[idx] = tg_requant(acc, rq, c);
-    } else {
-        ((int32_t *)y)[idx] = acc;
+    for (; i < len; ++i) {  /* plain path, or a patch shorter than one group */
+        xw[i] = (int16_t)(raw[i] - in_zp);
     }
 }
 
-/* Accumulator of output channel c (group g) over the valid window; xb indexes pixel x[b][0][0]. */
-static int32_t tg_conv_channel(const tg_conv_params_t *p, const tg_conv_window_t *win,
-                               const int8_t *x, const int8_t *wc, int32_t xb, int32_t g,
-                               int32_t c)
+/* The two pixels' widened patches: pixel 1's starts TG_CONV_PATCH elements after pixel 0's.
+ * The union gives the word alignment the DSP loads need. */
+typedef union {
+    int16_t h[2][TG_CONV_PATCH];
+    uint32_t words[TG_CONV_PATCH];
+} tg_conv_patches_t;
+
+#if TG_CONV_DSP
+/* a += the 2x2 dot products over groups of four: {x0.w0, x0.w1, x1.w0, x1.w1}; x0 is a
+ * widened patch (lanes 0,2 / 1,3), x1 the one after it. groups >= 1. */
+static inline void tg_conv_dot_2x2_groups(const int16_t *x0, const int8_t *w0,
+                                          const int8_t *w1, int32_t groups, int32_t a[4])
 {
-    const int32_t in_per_group = p->in_c / p->groups;
-    /* With unit dilation and one group, one kernel row is a single contiguous run of x and w. */
-    const int row_is_contiguous = p->dil_w == 1 && p->groups == 1;
-    int32_t acc = 0;
-    int32_t ky;
-    int32_t kx;
-    if (win->kx0 >= win->kx1) {
-        return 0;
-    }
-    for (ky = win->ky0; ky < win->ky1; ++ky) {
-        const int32_t row = xb + (win->base_y + ky * p->dil_h) * p->in_w + win->base_x;
-        const int8_t *wr = wc + ky * p->k_w * in_per_group;
-        if (row_is_contiguous) {
-            acc += tg_conv_dot_wzp(x + (row + win->kx0) * p->in_c, wr + win->kx0 * p->in_c,
-                                   (win->kx1 - win->kx0) * p->in_c, p->in_zp, p->w_zp, c);
-            continue;
+    int32_t a00 = a[0], a01 = a[1], a10 = a[2], a11 = a[3];
+    uint32_t xe, xo, wv, we;
+    /* Each weight word is widened once and meets both pixels; pixel 1's patch is reloaded
+     * (LDRD, one instruction) rather than kept, so the loop fits in twelve registers. */
+    __asm__ volatile(
+        "1:\n\t"
+        "ldrd    %[xe], %[xo], [%[x], %[p1]]\n\t"
+        "ldr     %[wv], [%[w0]], #4\n\t"
+        "sxtb16  %[we], %[wv]\n\t"
+        "sxtb16  %[wv], %[wv], ror #8\n\t"
+        "smlad   %[a10], %[xe], %[we], %[a10]\n\t"
+        "smlad   %[a10], %[xo], %[wv], %[a10]\n\t"
+        "ldrd    %[xe], %[xo], [%[x]], #8\n\t"
+        "smlad   %[a00], %[xe], %[we], %[a00]\n\t"
+        "smlad   %[a00], %[xo], %[wv], %[a00]\n\t"
+        "ldr     %[wv], [%[w1]], #4\n\t"
+        "sxtb16  %[we], %[wv]\n\t"
+        "sxtb16  %[wv], %[wv], ror #8\n\t"
+        "smlad   %[a01], %[xe], %[we], %[a01]\n\t"
+        "smlad   %[a01], %[xo], %[wv], %[a01]\n\t"
+        "ldrd    %[xe], %[xo], [%[x], %[p1b]]\n\t"
+        "smlad   %[a11], %[xe], %[we], %[a11]\n\t"
+        "smlad   %[a11], %[xo], %[wv], %[a11]\n\t"
+        "subs    %[n], %[n], #1\n\t"
+        "bne     1b"
+        : [a00] "+r"(a00), [a01] "+r"(a01), [a10] "+r"(a10), [a11] "+r"(a11),
+          [x] "+r"(x0), [w0] "+r"(w0), [w1] "+r"(w1), [n] "+r"(groups),
+          [xe] "=&r"(xe), [xo] "=&r"(xo), [wv] "=&r"(wv), [we] "=&r"(we)
+        : [p1] "i"(TG_CONV_PATCH * 2), [p1b] "i"(TG_CONV_PATCH * 2 - 8)
+        : "cc", "memory");
+    a[0] = a00;
+    a[1] = a01;
+    a[2] = a10;
+    a[3] = a11;
+}
+#endif
+
+/* Kept out of line: inlined into the pixel loop, gcc -Os spills its eight live values. */
+#if defined(__GNUC__)
+#define TG_CONV_NOINLINE __attribute__((noinline))
+#else
+#define TG_CONV_NOINLINE
+#endif
+
+/* a += {x0.w0, x0.w1, x1.w0, x1.w1} over len patch elements (x1 = pixel 1's patch). */
+static TG_CONV_NOINLINE void tg_conv_dot_2x2(const tg_conv_patches_t *xw, const int8_t *w0,
+                                             const int8_t *w1, int32_t len, int32_t a[4])
+{
+    const int16_t *x0 = xw->h[0];
+    int32_t a00, a01, a10, a11;
+    int32_t n;
+#if TG_CONV_DSP
+    if (len >= 4) {
+        tg_conv_dot_2x2_groups(x0, w0, w1, len >> 2, a);
+        if ((len & 3) != 0) {  /* the last partial group pairs with the weight word at len - 4 */
+            tg_conv_dot_2x2_groups(x0 + (len & ~3), w0 + len - 4, w1 + len - 4, 1, a);
         }
-        for (kx = win->kx0; kx < win->kx1; ++kx) {
-            acc += tg_conv_dot_wzp(x + (row + kx * p->dil_w) * p->in_c + g * in_per_group,
-                                   wr + kx * in_per_group, in_per_group, p->in_zp, p->w_zp, c);
+        return;
+    }
+#endif
+    a00 = a[0];
+    a01 = a[1];
+    a10 = a[2];
+    a11 = a[3];
+    for (n = len; n != 0; --n) {
+        const int32_t u0 = x0[0], u1 = x0[TG_CONV_PATCH], v0 = *w0++, v1 = *w1++;
+        ++x0;
+        a00 += u0 * v0;
+        a01 += u0 * v1;
+        a10 += u1 * v0;
+        a11 += u1 * v1;
+    }
+    a[0] = a00;
+    a[1] = a01;
+    a[2] = a10;
+    a[3] = a11;
+}
+
+/* Sum of len int8 values. */
+static int32_t tg_conv_sum(const int8_t *v, int32_t len)
+{
+    int32_t s = 0;
+    int32_t i;
+    for (i = 0; i < len; ++i) {
+        s += v[i];
+    }
+    return s;
+}
+
+/* What one call shares: sizes, and the channel block being worked on. */
+typedef struct {
+    const tg_conv_params_t *p;
+    const int8_t *x;
+    const int8_t *w;
+    const int32_t *bias;
+    void *y;
+    int32_t k_len, npix;
+    int32_t g, c0, nc;  /* group, first channel and channel count of the block */
+} tg_conv_job_t;
+
+/* Scratch of one call, on the stack. */
+typedef struct {
+    int8_t raw[TG_CONV_PATCH];
+    tg_conv_patches_t xw;
+    int32_t acc[2][TG_CONV_BLOCK];  /* partial sums between patch pieces */
+} tg_conv_scratch_t;
+
+/* The channels of the block for output pixels pix and pix1 (pix1 == pix for a lone pixel). */
+static void tg_conv_pixel_pair(const tg_conv_job_t *job, int32_t pix, int32_t pix1,
+                               tg_conv_scratch_t *s)
+{
+    const tg_conv_params_t *p = job->p;
+    int32_t xsum0 = 0, xsum1 = 0;  /* sums of x - in_zp, for a weight zero point */
+    int32_t k0, j;
+    for (k0 = 0; k0 < job->k_len; k0 += TG_CONV_PATCH) {
+        const int32_t len = job->k_len - k0 < TG_CONV_PATCH ? job->k_len - k0 : TG_CONV_PATCH;
+        const int first = k0 == 0;
+        const int last = k0 + len == job->k_len;
+        tg_conv_gather(p, job->x, pix, job->g, k0, len, s->raw);
+        tg_conv_widen_patch(s->raw, len, p->in_zp, s->xw.h[0]);
+        if (p->w_zp != NULL) {
+            xsum0 += tg_conv_sum(s->raw, len) - len * p->in_zp;
+        }
+        tg_conv_gather(p, job->x, pix1, job->g, k0, len, s->raw);
+        tg_conv_widen_patch(s->raw, len, p->in_zp, s->xw.h[1]);
+        if (p->w_zp != NULL) {
+            xsum1 += tg_conv_sum(s->raw, len) - len * p->in_zp;
+        }
+        for (j = 0; j < job->nc; j += 2) {
+            const int32_t c = job->c0 + j;
+            const int32_t pair = j + 1 < job->nc ? 2 : 1;  /* a lone channel runs twice */
+            const int32_t c1 = c + pair - 1;
+            int32_t a[4], out[2];
+            a[0] = first ? job->bias[c] : s->acc[0][j];
+            a[1] = first ? job->bias[c1] : s->acc[0][j + pair - 1];
+            a[2] = first ? job->bias[c] : s->acc[1][j];
+            a[3] = first ? job->bias[c1] : s->acc[1][j + pair - 1];
+            tg_conv_dot_2x2(&s->xw, job->w + c * job->k_len + k0,
+                            job->w + c1 * job->k_len + k0, len, a);
+            if (!last) {
+                s->acc[0][j] = a[0];
+                s->acc[0][j + pair - 1] = a[1];
+                s->acc[1][j] = a[2];
+                s->acc[1][j + pair - 1] = a[3];
+                continue;
+            }
+            if (p->w_zp != NULL) {
+                a[0] -= p->w_zp[c] * xsum0;
+                a[1] -= p->w_zp[c1] * xsum0;
+                a[2] -= p->w_zp[c] * xsum1;
+                a[3] -= p->w_zp[c1] * xsum1;
+            }
+            out[0] = a[0];
+            out[1] = a[1];
+            tg_conv_put(p->rq, job->y, pix * p->out_c + c, out, c, pair);
+            out[0] = a[2];
+            out[1] = a[3];
+            tg_conv_put(p->rq, job->y, pix1 * p->out_c + c, out, c, pair);
         }
     }
-    return acc;
 }
 
 void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
              const int32_t *bias, void *y)
 {
-    const int32_t out_per_group = p->out_c / p->groups;
-    const int32_t w_per_channel = p->k_h * p->k_w * (p->in_c / p->groups);
-    int32_t b, oy, ox, g, c;
-    for (b = 0; b < p->n; ++b) {
-        const int32_t xb = b * p->in_h * p->in_w;
-        for (oy = 0; oy < p->out_h; ++oy) {
-            for (ox = 0; ox < p->out_w; ++ox) {
-                const tg_conv_window_t win = tg_conv_window(p, oy, ox);
-                const int32_t yi = ((b * p->out_h + oy) * p->out_w + ox) * p->out_c;
-                for (g = 0; g < p->groups; ++g) {
-                    for (c = g * out_per_group; c < (g + 1) * out_per_group; ++c) {
-                        const int32_t acc = bias[c] + tg_conv_channel(p, &win, x,
-                                                                      w + c * w_per_channel,
-                                                                      xb, g, c);
-                        tg_conv_store(p->rq, y, yi + c, acc, c);
-                    }
-                }
+    const int32_t out_pg = p->out_c / p->groups;
+    tg_conv_scratch_t scratch;
+    tg_conv_job_t job;
+    int32_t pix;
+    job.p = p;
+    job.x = x;
+    job.w = w;
+    job.bias = bias;
+    job.y = y;
+    job.k_len = p->k_h * p->k_w * (p->in_c / p->groups);
+    job.npix = p->n * p->out_h * p->out_w;
+    for (job.g = 0; job.g < p->groups; ++job.g) {
+        for (job.c0 = job.g * out_pg; job.c0 < (job.g + 1) * out_pg; job.c0 += TG_CONV_BLOCK) {
+            const int32_t left = (job.g + 1) * out_pg - job.c0;
+            job.nc = left < TG_CONV_BLOCK ? left : TG_CONV_BLOCK;
+            for (pix = 0; pix < job.npix; pix += 2) {
+                tg_conv_pixel_pair(&job, pix, pix + 1 < job.npix ? pix + 1 : pix, &scratch);
             }
         }
     }
 }
 
-/* One depthwise channel over the valid window; xc points at x[b][0][0][ic]. */
-static inline int32_t tg_dwconv_window(const tg_conv_params_t *p, const tg_conv_window_t *win,
-                                       const int8_t *xc, const int8_t *wc, int32_t wz)
+/* ---- tg_dwconv ----------------------------------------------------------------------- */
+
+/* One depthwise output channel over the valid window, any multiplier; xc points at
+ * x[b][0][0][ic]. The general path: tg_dwconv takes it for multiplier > 1 and huge kernels. */
+static int32_t tg_dwconv_window(const tg_conv_params_t *p, const tg_conv_window_t *win,
+                                const int8_t *xc, const int8_t *wc, int32_t wz)
 {
     int32_t acc = 0;
     int32_t ky;
@@ -181,8 +399,8 @@ static inline int32_t tg_dwconv_window(const tg_conv_params_t *p, const tg_conv_
     return acc;
 }
 
-void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
-               const int32_t *bias, void *y)
+static void tg_dwconv_general(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
+                              const int32_t *bias, void *y)
 {
     const int32_t multiplier = p->out_c / p->in_c;
     const int32_t taps = p->k_h * p->k_w;
@@ -194,15 +412,199 @@ void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
                 const tg_conv_window_t win = tg_conv_window(p, oy, ox);
                 const int32_t yi = ((b * p->out_h + oy) * p->out_w + ox) * p->out_c;
                 for (c = 0; c < p->out_c; ++c) {
-                    const int8_t *xc = xb + c / multiplier;
-                    const int8_t *wc = w + c * taps;
-                    int32_t acc = bias[c];
-                    if (p->w_zp == NULL) {
-                        acc += tg_dwconv_window(p, &win, xc, wc, 0);
-                    } else {
-                        acc += tg_dwconv_window(p, &win, xc, wc, p->w_zp[c]);
+                    const int32_t wz = p->w_zp != NULL ? p->w_zp[c] : 0;
+                    const int32_t acc = bias[c] + tg_dwconv_window(p, &win, xb + c / multiplier,
+                                                                   w + c * taps, wz);
+                    tg_conv_put(p->rq, y, yi + c, &acc, c, 1);
+                }
+            }
+        }
+    }
+}
+
+/* Multiplier 1: the weights w - w_zp of channels [c0, c0 + nc) as int16, one group of four
+ * channels after the other, each [tap][4] (the last group padded with zero weights): the
+ * four channels of one input word meet four neighbouring weights, and each next tap's
+ * weights follow at a fixed distance. */
+typedef union {
+    int16_t h[TG_DW_TABLE];
+    uint32_t words[TG_DW_TABLE / 2];  /* word alignment for the DSP loads */
+} tg_dw_table_t;
+
+static void tg_dwconv_table(const tg_conv_params_t *p, const int8_t *w, int32_t c0, int32_t nc,
+                            tg_dw_table_t *wt)
+{
+    const int32_t taps = p->k_h * p->k_w;
+    int32_t j, t;
+    for (j = 0; j < ((nc + 3) & ~3); ++j) {
+        const int32_t wz = (j < nc && p->w_zp != NULL) ? p->w_zp[c0 + j] : 0;
+        int16_t *col = wt->h + (j >> 2) * taps * 4 + (j & 3);
+        for (t = 0; t < taps; ++t) {
+            col[t * 4] = (int16_t)(j < nc ? w[(c0 + j) * taps + t] - wz : 0);
+        }
+    }
+}
+
+/* How one output pixel walks its valid window (shared by all its channel groups): rows of
+ * cols taps, x_step bytes apart in x; after a row, x moves on by x_row and the weights
+ * ([tap][4] int16) by w_row elements. */
+typedef struct {
+    int32_t rows, cols, x_step, x_row, w_row;
+    int32_t x0, w0;  /* offsets of the first valid tap: bytes into x, elements into a group */
+} tg_dw_walk_t;
+
+static tg_dw_walk_t tg_dwconv_walk(const tg_conv_params_t *p, const tg_conv_window_t *win)
+{
+    tg_dw_walk_t wk;
+    wk.rows = win->ky1 - win->ky0;
+    wk.cols = win->kx1 - win->kx0;
+    wk.x_step = p->dil_w * p->in_c;
+    wk.x_row = p->dil_h * p->in_w * p->in_c - wk.cols * wk.x_step;
+    wk.w_row = (p->k_w - wk.cols) * 4;
+    wk.x0 = ((win->base_y + win->ky0 * p->dil_h) * p->in_w + win->base_x
+             + win->kx0 * p->dil_w) * p->in_c;
+    wk.w0 = (win->ky0 * p->k_w + win->kx0) * 4;
+    return wk;
+}
+
+/* a[0..3] += the window sums of four neighbouring channels: xr points at the first valid
+ * tap of the first channel, wr at its weights; the window is not empty. */
+static TG_CONV_NOINLINE void tg_dwconv_quad(const int8_t *xr, const int16_t *wr,
+                                            const tg_dw_walk_t *wk, int32_t in_zp,
+                                            int32_t a[4])
+{
+#if TG_CONV_DSP
+    const uint32_t off = tg_conv_neg_pair(in_zp);
+    const int32_t x_step = wk->x_step;
+    const int32_t x_row = wk->x_row;
+    const int32_t w_row_bytes = wk->w_row * 2;
+    const int32_t cols = wk->cols;
+    int32_t rows = wk->rows;
+    int32_t a0 = a[0], a1 = a[1], a2 = a[2], a3 = a[3];
+    int32_t n = cols;
+    uint32_t v, e, wv;
+    /* x - in_zp of channels c, c+2 (e) and c+1, c+3 (v) as int16 lanes; the weight words
+     * hold channels c, c+1 and c+2, c+3, so SMLAxy picks the matching lanes. The per-row
+     * values wait in memory: the tap loop needs the twelve registers. */
+    __asm__ volatile(
+        "1:\n\t"
+        "ldr     %[v], [%[x]]\n\t"
+        "add     %[x], %[x], %[xs]\n\t"
+        "ldr     %[wv], [%[w]], #4\n\t"
+        "sxtab16 %[e], %[off], %[v]\n\t"
+        "sxtab16 %[v], %[off], %[v], ror #8\n\t"
+        "smlabb  %[a0], %[e], %[wv], %[a0]\n\t"
+        "smlabt  %[a1], %[v], %[wv], %[a1]\n\t"
+        "ldr     %[wv], [%[w]], #4\n\t"
+        "smlatb  %[a2], %[e], %[wv], %[a2]\n\t"
+        "smlatt  %[a3], %[v], %[wv], %[a3]\n\t"
+        "subs    %[n], %[n], #1\n\t"
+        "bne     1b\n\t"
+        "ldr     %[v], %[xrow]\n\t"
+        "add     %[x], %[x], %[v]\n\t"
+        "ldr     %[v], %[wrow]\n\t"
+        "add     %[w], %[w], %[v]\n\t"
+        "ldr     %[n], %[cols]\n\t"
+        "ldr     %[v], %[rows]\n\t"
+        "subs    %[v], %[v], #1\n\t"
+        "str     %[v], %[rows]\n\t"
+        "bne     1b"
+        : [a0] "+r"(a0), [a1] "+r"(a1), [a2] "+r"(a2), [a3] "+r"(a3),
+          [x] "+r"(xr), [w] "+r"(wr), [n] "+r"(n), [rows] "+m"(rows),
+          [v] "=&r"(v), [e] "=&r"(e), [wv] "=&r"(wv)
+        : [xs] "r"(x_step), [off] "r"(off),
+          [xrow] "m"(x_row), [wrow] "m"(w_row_bytes), [cols] "m"(cols)
+        : "cc", "memory");
+    a[0] = a0;
+    a[1] = a1;
+    a[2] = a2;
+    a[3] = a3;
+#else
+    const int32_t x_step = wk->x_step, x_row = wk->x_row, w_row = wk->w_row, cols = wk->cols;
+    int32_t a0 = a[0], a1 = a[1], a2 = a[2], a3 = a[3];
+    int32_t r, n;
+    for (r = wk->rows; r != 0; --r) {
+        for (n = cols; n != 0; --n) {
+            a0 += ((int32_t)xr[0] - in_zp) * wr[0];
+            a1 += ((int32_t)xr[1] - in_zp) * wr[1];
+            a2 += ((int32_t)xr[2] - in_zp) * wr[2];
+            a3 += ((int32_t)xr[3] - in_zp) * wr[3];
+            xr += x_step;
+            wr += 4;
+        }
+        xr += x_row;
+        wr += w_row;
+    }
+    a[0] = a0;
+    a[1] = a1;
+    a[2] = a2;
+    a[3] = a3;
+#endif
+}
+
+/* The window sum of one channel (one left over after the groups of four): xr, wr as for
+ * tg_dwconv_quad, the channel's weights every fourth element from wr. */
+static int32_t tg_dwconv_single(const int8_t *xr, const int16_t *wr, const tg_dw_walk_t *wk,
+                                int32_t in_zp)
+{
+    int32_t acc = 0;
+    int32_t r, n;
+    for (r = wk->rows; r != 0; --r) {
+        for (n = wk->cols; n != 0; --n) {
+            acc += ((int32_t)*xr - in_zp) * *wr;
+            xr += wk->x_step;
+            wr += 4;
+        }
+        xr += wk->x_row;
+        wr += wk->w_row;
+    }
+    return acc;
+}
+
+void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
+               const int32_t *bias, void *y)
+{
+    const int32_t taps = p->k_h * p->k_w;
+    const int32_t block = (TG_DW_TABLE / taps) & ~3;  /* channels whose weights fit the table */
+    tg_dw_table_t wt;
+    int32_t c0, b, oy, ox, j;
+    if (p->out_c != p->in_c || block < 4) {
+        tg_dwconv_general(p, x, w, bias, y);
+        return;
+    }
+    for (c0 = 0; c0 < p->out_c; c0 += block) {
+        const int32_t nc = p->out_c - c0 < block ? p->out_c - c0 : block;
+        int32_t yi = c0;
+        tg_dwconv_table(p, w, c0, nc, &wt);
+        for (b = 0; b < p->n; ++b) {
+            const int8_t *xc = x + b * p->in_h * p->in_w * p->in_c + c0;
+            for (oy = 0; oy < p->out_h; ++oy) {
+                for (ox = 0; ox < p->out_w; ++ox) {
+                    const tg_conv_window_t win = tg_conv_window(p, oy, ox);
+                    const tg_dw_walk_t wk = tg_dwconv_walk(p, &win);
+                    const int empty = wk.rows == 0 || wk.cols == 0;
+                    for (j = 0; j + 4 <= nc; j += 4) {
+                        int32_t a[4];
+                        a[0] = bias[c0 + j];
+                        a[1] = bias[c0 + j + 1];
+                        a[2] = bias[c0 + j + 2];
+                        a[3] = bias[c0 + j + 3];
+                        if (!empty) {
+                            tg_dwconv_quad(xc + wk.x0 + j, wt.h + j * taps + wk.w0, &wk,
+                                           p->in_zp, a);
+                        }
+                        tg_conv_put(p->rq, y, yi + j, a, c0 + j, 4);
                     }
-                    tg_conv_store(p->rq, y, yi + c, acc, c);
+                    for (; j < nc; ++j) {
+                        int32_t acc = bias[c0 + j];
+                        if (!empty) {
+                            acc += tg_dwconv_single(xc + wk.x0 + j,
+                                                    wt.h + (j & ~3) * taps + wk.w0 + (j & 3),
+                                                    &wk, p->in_zp);
+                        }
+                        tg_conv_put(p->rq, y, yi + j, &acc, c0 + j, 1);
+                    }
+                    yi += p->out_c;
                 }
             }
         }
