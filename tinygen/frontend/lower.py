@@ -70,6 +70,8 @@ class Lowering:
         self.b = Builder(view.path, view.name)
         self.env: dict[str, object] = {}
         self.opset = view.opset.get("", 17)
+        self.int_inputs: set[str] = set()  # graph inputs that are int8/uint8 already
+        self.input_tensors: dict[str, Tensor] = {}  # graph input -> its IR tensor
 
     # -- helpers used by the handler modules ------------------------------------------
     def error(self, reason: str) -> TinygenError:
@@ -138,7 +140,7 @@ class Lowering:
                 raise TinygenError(f"graph input '{name}' has no static shape", file=v.path)
             if dt is not None and np.dtype(dt) in (np.int8, np.uint8):
                 self.env[name] = FloatIn(name)  # int input: gets params from its consumer
-                self._int_inputs = getattr(self, "_int_inputs", set()) | {name}
+                self.int_inputs.add(name)
             elif dt is not None and np.dtype(dt) != np.float32:
                 raise TinygenError(f"graph input '{name}' has type {np.dtype(dt).name}; "
                                    "float32, int8 or uint8 expected", file=v.path)
@@ -174,10 +176,10 @@ class Lowering:
         first = self.env.get(node.input[0]) if node.input else None
         return isinstance(first, Int)
 
-    def quantize_input(self, name: str, q, src_dtype, out_name: str) -> Tensor:
+    def quantize_input(self, name: str, q, src_dtype) -> Tensor:
         """Create the IR tensor of a float graph input at its boundary QuantizeLinear."""
         v = self.view
-        cached = getattr(self, "_input_tensors", {})
+        cached = self.input_tensors
         if name in cached:
             t = cached[name]
             if not same_quant(t.quant, q):
@@ -185,11 +187,9 @@ class Lowering:
                                  "parameters")
             return t
         t = self.b.add_tensor(name, v.shapes[name], "int8", q)
-        onnx_dt = "float32" if name not in getattr(self, "_int_inputs", set()) else \
-            np.dtype(src_dtype).name
+        onnx_dt = np.dtype(src_dtype).name if name in self.int_inputs else "float32"
         self.b.add_input(t, name, onnx_dt, np.dtype(src_dtype).name)
         cached[name] = t
-        self._input_tensors = cached
         return t
 
     def bind_outputs(self) -> None:

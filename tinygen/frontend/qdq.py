@@ -69,7 +69,7 @@ def lower_quantize(L, node) -> None:
     rank = len(L.view.shapes.get(x_name, ()))
     q = _activation_quant(L, node, scale, zp, src, axis, rank)
     if isinstance(v, FloatIn):
-        L.env[out] = Int(L.quantize_input(x_name, q, src, out))
+        L.env[out] = Int(L.quantize_input(x_name, q, src))
     elif isinstance(v, Deq):
         L.env[out] = Int(ops.emit_lut(L.b, out, v.t, q, "identity"))
     elif isinstance(v, Pending):
@@ -114,7 +114,7 @@ def lower_dequantize(L, node) -> None:
             raise L.error(f"graph input '{x_name}' is dequantized per-axis: only constant "
                           "weights may be (is it meant to be an initializer?)")
         q = _activation_quant(L, node, scale, zp, src, axis, 0)
-        L.env[out] = Deq(L.quantize_input(x_name, q, src, out))
+        L.env[out] = Deq(L.quantize_input(x_name, q, src))
         return
     if not isinstance(v, Int):
         raise L.error(f"DequantizeLinear of '{x_name}', which is not a quantized tensor")

@@ -51,7 +51,7 @@ def operand(L, name: str, scale, zp, axis_for_const: int | None = None):
         if dt is None or np.dtype(dt) not in (np.int8, np.uint8):
             raise L.error(f"float graph input '{name}' feeds a QLinear op directly "
                           "(a QuantizeLinear is missing)")
-        return L.quantize_input(name, L.b.quant(scale, np.asarray(zp).astype(dt), dt), dt, name)
+        return L.quantize_input(name, L.b.quant(scale, np.asarray(zp).astype(dt), dt), dt)
     if isinstance(v, Int):
         if not ops.same_quant(v.t.quant, q):
             raise L.error(f"'{name}' is read with scale/zero point other than it was "
@@ -75,14 +75,13 @@ def _bind(L, name, t):
 
 def qlinear_conv(L, node):
     a = _attrs(node)
-    xs, wsc, ys = (L.const(node.input[i], "scale") for i in (1, 4, 6))
+    xs, wsc = L.const(node.input[1], "scale"), L.const(node.input[4], "scale")
     x = operand(L, node.input[0], xs, _zp(L, node, 2, None))
     w = operand(L, node.input[3], wsc, _zp(L, node, 5, None), axis_for_const=0)
     yq = _out_q(L, node, 6, 7, None)
     bias = L.opt_const(node, 8, "bias")
     bi = ops.bias_to_int32(L.b, bias, None, x.quant, w.quant, w.shape[0])
     _bind(L, node.output[0], ops.emit_conv(L.b, node.output[0], x, w, bi, yq, FULL, a))
-    del ys
 
 
 def conv_integer(L, node):
