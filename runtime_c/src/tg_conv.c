@@ -7,7 +7,8 @@
  * of the patch with the channel's weight row, taken for two channels and both pixels at
  * once: every weight word loaded serves two pixels, every patch word two channels. A weight
  * zero point comes off at the end: sum x'(w - wz) = sum x'w - wz * sum x' (x' = x - in_zp).
- * A patch longer than TG_CONV_PATCH is taken in pieces; partial sums wait in a stack array.
+ * A patch longer than TG_CONV_PATCH is taken in pieces. The sums of up to TG_CONV_BLOCK
+ * channels wait in a stack array and are requantized one pixel at a time.
  * tg_dwconv (multiplier 1) runs four channels at a time: one input word holds four
  * neighbouring channels, and a per-call table of int16 weights in [tap][channel] order
  * holds their weights side by side. The valid tap range is worked out once per pixel, so
@@ -108,16 +109,12 @@ static inline uint32_t tg_conv_neg_pair(int32_t zp)
 
 /* ---- tg_conv ------------------------------------------------------------------------- */
 
-/* Patch elements [k0, k0 + len) of output pixel pix (flat over n, out_h, out_w), group g,
- * as int8. Element k is tap k / in_pg, channel g*in_pg + k % in_pg; padding reads as in_zp. */
-static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, int32_t pix, int32_t g,
-                           int32_t k0, int32_t len, int8_t *dst)
+/* Patch elements [k0, k0 + len) of the output pixel at window win, batch b, group g, as
+ * int8. Element k is tap k / in_pg, channel g*in_pg + k % in_pg; padding reads as in_zp. */
+static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, tg_conv_window_t win,
+                           int32_t b, int32_t g, int32_t k0, int32_t len, int8_t *dst)
 {
     const int32_t in_pg = p->in_c / p->groups;
-    const int32_t ox = pix % p->out_w;
-    const int32_t oy = (pix / p->out_w) % p->out_h;
-    const int32_t b = pix / (p->out_w * p->out_h);
-    const tg_conv_window_t win = tg_conv_window(p, oy, ox);
     /* Neighbouring taps of one kernel row are neighbours in x too: copy them as one run. */
     const int taps_adjacent = p->dil_w == 1 && in_pg == p->in_c;
     const int32_t end = k0 + len;
@@ -148,6 +145,26 @@ static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, int32_t p
         dst += run;
         k += run;
     }
+}
+
+/* Patch elements [k0, k0 + len) of output pixel pix (flat over n, out_h, out_w), group g:
+ * a pointer into x itself when they are one contiguous run there (a window without padding
+ * whose kernel rows follow each other in memory, as in 1x1 and 1-D convolutions), else
+ * gathered into raw. */
+static const int8_t *tg_conv_patch(const tg_conv_params_t *p, const int8_t *x, int32_t pix,
+                                   int32_t g, int32_t k0, int32_t len, int8_t *raw)
+{
+    const int32_t ox = pix % p->out_w;
+    const int32_t oy = (pix / p->out_w) % p->out_h;
+    const int32_t b = pix / (p->out_w * p->out_h);
+    const tg_conv_window_t win = tg_conv_window(p, oy, ox);
+    const int full = win.ky0 == 0 && win.ky1 == p->k_h && win.kx0 == 0 && win.kx1 == p->k_w;
+    const int rows_follow = p->k_h == 1 || (p->dil_h == 1 && p->k_w == p->in_w);
+    if (full && rows_follow && p->groups == 1 && p->dil_w == 1) {
+        return x + ((b * p->in_h + win.base_y) * p->in_w + win.base_x) * p->in_c + k0;
+    }
+    tg_conv_gather(p, x, win, b, g, k0, len, raw);
+    return raw;
 }
 
 /* raw (len int8, padding already in_zp) -> xw, int16 x - in_zp. The DSP path stores each
@@ -186,12 +203,13 @@ typedef union {
 } tg_conv_patches_t;
 
 #if TG_CONV_DSP
-/* a += the 2x2 dot products over groups of four: {x0.w0, x0.w1, x1.w0, x1.w1}; x0 is a
- * widened patch (lanes 0,2 / 1,3), x1 the one after it. groups >= 1. */
+/* The 2x2 dot products over groups of four: acc0 += {x0.w0, x0.w1}, acc1 += {x1.w0, x1.w1};
+ * x0 is a widened patch (lanes 0,2 / 1,3), x1 the one after it. groups >= 1. */
 static inline void tg_conv_dot_2x2_groups(const int16_t *x0, const int8_t *w0,
-                                          const int8_t *w1, int32_t groups, int32_t a[4])
+                                          const int8_t *w1, int32_t groups, int32_t *acc0,
+                                          int32_t *acc1)
 {
-    int32_t a00 = a[0], a01 = a[1], a10 = a[2], a11 = a[3];
+    int32_t a00 = acc0[0], a01 = acc0[1], a10 = acc1[0], a11 = acc1[1];
     uint32_t xe, xo, wv, we;
     /* Each weight word is widened once and meets both pixels; pixel 1's patch is reloaded
      * (LDRD, one instruction) rather than kept, so the loop fits in twelve registers. */
@@ -221,10 +239,10 @@ static inline void tg_conv_dot_2x2_groups(const int16_t *x0, const int8_t *w0,
           [xe] "=&r"(xe), [xo] "=&r"(xo), [wv] "=&r"(wv), [we] "=&r"(we)
         : [p1] "i"(TG_CONV_PATCH * 2), [p1b] "i"(TG_CONV_PATCH * 2 - 8)
         : "cc", "memory");
-    a[0] = a00;
-    a[1] = a01;
-    a[2] = a10;
-    a[3] = a11;
+    acc0[0] = a00;
+    acc0[1] = a01;
+    acc1[0] = a10;
+    acc1[1] = a11;
 }
 #endif
 
@@ -235,26 +253,28 @@ static inline void tg_conv_dot_2x2_groups(const int16_t *x0, const int8_t *w0,
 #define TG_CONV_NOINLINE
 #endif
 
-/* a += {x0.w0, x0.w1, x1.w0, x1.w1} over len patch elements (x1 = pixel 1's patch). */
+/* acc0 += {x0.w0, x0.w1}, acc1 += {x1.w0, x1.w1} over len patch elements (x0, x1: the
+ * two pixels' patches). */
 static TG_CONV_NOINLINE void tg_conv_dot_2x2(const tg_conv_patches_t *xw, const int8_t *w0,
-                                             const int8_t *w1, int32_t len, int32_t a[4])
+                                             const int8_t *w1, int32_t len, int32_t *acc0,
+                                             int32_t *acc1)
 {
     const int16_t *x0 = xw->h[0];
     int32_t a00, a01, a10, a11;
     int32_t n;
 #if TG_CONV_DSP
     if (len >= 4) {
-        tg_conv_dot_2x2_groups(x0, w0, w1, len >> 2, a);
+        tg_conv_dot_2x2_groups(x0, w0, w1, len >> 2, acc0, acc1);
         if ((len & 3) != 0) {  /* the last partial group pairs with the weight word at len - 4 */
-            tg_conv_dot_2x2_groups(x0 + (len & ~3), w0 + len - 4, w1 + len - 4, 1, a);
+            tg_conv_dot_2x2_groups(x0 + (len & ~3), w0 + len - 4, w1 + len - 4, 1, acc0, acc1);
         }
         return;
     }
 #endif
-    a00 = a[0];
-    a01 = a[1];
-    a10 = a[2];
-    a11 = a[3];
+    a00 = acc0[0];
+    a01 = acc0[1];
+    a10 = acc1[0];
+    a11 = acc1[1];
     for (n = len; n != 0; --n) {
         const int32_t u0 = x0[0], u1 = x0[TG_CONV_PATCH], v0 = *w0++, v1 = *w1++;
         ++x0;
@@ -263,10 +283,10 @@ static TG_CONV_NOINLINE void tg_conv_dot_2x2(const tg_conv_patches_t *xw, const 
         a10 += u1 * v0;
         a11 += u1 * v1;
     }
-    a[0] = a00;
-    a[1] = a01;
-    a[2] = a10;
-    a[3] = a11;
+    acc0[0] = a00;
+    acc0[1] = a01;
+    acc1[0] = a10;
+    acc1[1] = a11;
 }
 
 /* Sum of len int8 values. */
@@ -295,62 +315,50 @@ typedef struct {
 typedef struct {
     int8_t raw[TG_CONV_PATCH];
     tg_conv_patches_t xw;
-    int32_t acc[2][TG_CONV_BLOCK];  /* partial sums between patch pieces */
+    int32_t acc[2][TG_CONV_BLOCK + 1];  /* both pixels' sums; + 1: a lone last channel's twin */
 } tg_conv_scratch_t;
 
-/* The channels of the block for output pixels pix and pix1 (pix1 == pix for a lone pixel). */
+/* The channels of the block for output pixels pix and pix1 (pix1 == pix for a lone pixel):
+ * the sums build up in s->acc over the patch pieces, then go out one pixel at a time. */
 static void tg_conv_pixel_pair(const tg_conv_job_t *job, int32_t pix, int32_t pix1,
                                tg_conv_scratch_t *s)
 {
     const tg_conv_params_t *p = job->p;
+    const int32_t nc = job->nc, c0 = job->c0, k_len = job->k_len;
+    const int8_t *wb = job->w + c0 * k_len;  /* the block's first weight row */
     int32_t xsum0 = 0, xsum1 = 0;  /* sums of x - in_zp, for a weight zero point */
     int32_t k0, j;
-    for (k0 = 0; k0 < job->k_len; k0 += TG_CONV_PATCH) {
-        const int32_t len = job->k_len - k0 < TG_CONV_PATCH ? job->k_len - k0 : TG_CONV_PATCH;
-        const int first = k0 == 0;
-        const int last = k0 + len == job->k_len;
-        tg_conv_gather(p, job->x, pix, job->g, k0, len, s->raw);
-        tg_conv_widen_patch(s->raw, len, p->in_zp, s->xw.h[0]);
+    memcpy(s->acc[0], job->bias + c0, (size_t)nc * sizeof(int32_t));
+    memcpy(s->acc[1], job->bias + c0, (size_t)nc * sizeof(int32_t));
+    s->acc[0][nc] = 0;
+    s->acc[1][nc] = 0;
+    for (k0 = 0; k0 < k_len; k0 += TG_CONV_PATCH) {
+        const int32_t len = k_len - k0 < TG_CONV_PATCH ? k_len - k0 : TG_CONV_PATCH;
+        const int8_t *src = tg_conv_patch(p, job->x, pix, job->g, k0, len, s->raw);
+        tg_conv_widen_patch(src, len, p->in_zp, s->xw.h[0]);
         if (p->w_zp != NULL) {
-            xsum0 += tg_conv_sum(s->raw, len) - len * p->in_zp;
+            xsum0 += tg_conv_sum(src, len) - len * p->in_zp;
         }
-        tg_conv_gather(p, job->x, pix1, job->g, k0, len, s->raw);
-        tg_conv_widen_patch(s->raw, len, p->in_zp, s->xw.h[1]);
+        src = tg_conv_patch(p, job->x, pix1, job->g, k0, len, s->raw);
+        tg_conv_widen_patch(src, len, p->in_zp, s->xw.h[1]);
         if (p->w_zp != NULL) {
-            xsum1 += tg_conv_sum(s->raw, len) - len * p->in_zp;
+            xsum1 += tg_conv_sum(src, len) - len * p->in_zp;
         }
-        for (j = 0; j < job->nc; j += 2) {
-            const int32_t c = job->c0 + j;
-            const int32_t pair = j + 1 < job->nc ? 2 : 1;  /* a lone channel runs twice */
-            const int32_t c1 = c + pair - 1;
-            int32_t a[4], out[2];
-            a[0] = first ? job->bias[c] : s->acc[0][j];
-            a[1] = first ? job->bias[c1] : s->acc[0][j + pair - 1];
-            a[2] = first ? job->bias[c] : s->acc[1][j];
-            a[3] = first ? job->bias[c1] : s->acc[1][j + pair - 1];
-            tg_conv_dot_2x2(&s->xw, job->w + c * job->k_len + k0,
-                            job->w + c1 * job->k_len + k0, len, a);
-            if (!last) {
-                s->acc[0][j] = a[0];
-                s->acc[0][j + pair - 1] = a[1];
-                s->acc[1][j] = a[2];
-                s->acc[1][j + pair - 1] = a[3];
-                continue;
-            }
-            if (p->w_zp != NULL) {
-                a[0] -= p->w_zp[c] * xsum0;
-                a[1] -= p->w_zp[c1] * xsum0;
-                a[2] -= p->w_zp[c] * xsum1;
-                a[3] -= p->w_zp[c1] * xsum1;
-            }
-            out[0] = a[0];
-            out[1] = a[1];
-            tg_conv_put(p->rq, job->y, pix * p->out_c + c, out, c, pair);
-            out[0] = a[2];
-            out[1] = a[3];
-            tg_conv_put(p->rq, job->y, pix1 * p->out_c + c, out, c, pair);
+        for (j = 0; j < nc; j += 2) {
+            const int8_t *w0 = wb + j * k_len + k0;
+            /* a lone last channel pairs with itself; its twin lands in the spare slot */
+            tg_conv_dot_2x2(&s->xw, w0, j + 1 < nc ? w0 + k_len : w0, len, s->acc[0] + j,
+                            s->acc[1] + j);
         }
     }
+    if (p->w_zp != NULL) {
+        for (j = 0; j < nc; ++j) {
+            s->acc[0][j] -= p->w_zp[c0 + j] * xsum0;
+            s->acc[1][j] -= p->w_zp[c0 + j] * xsum1;
+        }
+    }
+    tg_conv_put(p->rq, job->y, pix * p->out_c + c0, s->acc[0], c0, nc);
+    tg_conv_put(p->rq, job->y, pix1 * p->out_c + c0, s->acc[1], c0, nc);
 }
 
 void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
