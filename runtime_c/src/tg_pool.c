@@ -55,6 +55,9 @@ static int32_t tg_pool_count(const tg_pool_params_t *p, const tg_pool_window_t *
 void tg_maxpool(const tg_pool_params_t *p, const int8_t *x, int8_t *y)
 {
     const int32_t c = p->c;
+    const int32_t act_min = p->act_min, act_max = p->act_max;
+    /* With the full int8 range the clamp cannot change a value: skip its pass. */
+    const int clamps = act_min > -128 || act_max < 127;
     int32_t b, oy, ox, ky, kx, i;
     for (b = 0; b < p->n; ++b) {
         const int8_t *xb = x + b * p->in_h * p->in_w * c;
@@ -76,9 +79,12 @@ void tg_maxpool(const tg_pool_params_t *p, const int8_t *x, int8_t *y)
                         }
                     }
                 }
-                for (i = 0; i < c; ++i) {
-                    y[i] = (int8_t)(first ? p->act_min : tg_clamp32(y[i], p->act_min,
-                                                                      p->act_max));
+                if (first) {
+                    memset(y, (int8_t)act_min, (size_t)c);
+                } else if (clamps) {
+                    for (i = 0; i < c; ++i) {
+                        y[i] = (int8_t)tg_clamp32(y[i], act_min, act_max);
+                    }
                 }
                 y += c;
             }
@@ -86,27 +92,37 @@ void tg_maxpool(const tg_pool_params_t *p, const int8_t *x, int8_t *y)
     }
 }
 
-/* Integer window sums of channels [c0, c0 + len) into acc. */
+/* Integer window sums of channels [c0, c0 + len) into acc, each less taps * in_zp. Four
+ * channels walk the window together, their sums in registers rather than in acc. */
 static void tg_pool_sum(const tg_pool_params_t *p, const int8_t *xb, const tg_pool_window_t *w,
                         int32_t c0, int32_t len, int32_t *acc)
 {
     const int32_t c = p->c;
-    int32_t ky, kx, i, taps = 0;
-    for (i = 0; i < len; ++i) {
-        acc[i] = 0;
-    }
-    for (ky = w->ky0; ky < w->ky1; ++ky) {
-        const int8_t *row = xb + (w->base_y + ky * p->dil_h) * p->in_w * c + c0;
-        for (kx = w->kx0; kx < w->kx1; ++kx) {
-            const int8_t *src = row + (w->base_x + kx * p->dil_w) * c;
-            for (i = 0; i < len; ++i) {
-                acc[i] += src[i];
+    const int32_t start = -(w->ky1 - w->ky0) * (w->kx1 - w->kx0) * p->in_zp;
+    const int32_t x_step = p->dil_w * c;
+    const int8_t *first = xb + (w->base_y * p->in_w + w->base_x) * c + c0;
+    int32_t ky, kx, i, lanes;
+    for (i = 0; i < len; i += lanes) {
+        int32_t a0 = start, a1 = start, a2 = start, a3 = start;
+        lanes = len - i >= 4 ? 4 : 1;  /* the last len % 4 channels one at a time */
+        for (ky = w->ky0; ky < w->ky1; ++ky) {
+            const int8_t *src = first + (ky * p->dil_h * p->in_w + w->kx0 * p->dil_w) * c + i;
+            for (kx = w->kx0; kx < w->kx1; ++kx) {
+                a0 += src[0];
+                if (lanes == 4) {
+                    a1 += src[1];
+                    a2 += src[2];
+                    a3 += src[3];
+                }
+                src += x_step;
             }
-            ++taps;
         }
-    }
-    for (i = 0; i < len; ++i) {
-        acc[i] -= taps * p->in_zp;
+        acc[i] = a0;
+        if (lanes == 4) {
+            acc[i + 1] = a1;
+            acc[i + 2] = a2;
+            acc[i + 3] = a3;
+        }
     }
 }
 
@@ -122,6 +138,11 @@ static int32_t tg_pool_fixed_avg(int32_t acc, int32_t count, int32_t mult, int32
     int64_t t = q + (count >> 1);
     if ((count & 1) && r >= ((uint64_t)1 << (shift - 1))) {
         ++t;
+    }
+    /* The same floor division in 32 bits whenever t allows it (a library call saved). */
+    if (t < INT32_MAX && t > (int64_t)count - INT32_MAX) {
+        const int32_t t32 = (int32_t)t;
+        return t32 >= 0 ? t32 / count : -((-t32 + count - 1) / count);
     }
     return (int32_t)(t >= 0 ? t / count : -((-t + count - 1) / count));
 }
