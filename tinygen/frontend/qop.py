@@ -16,6 +16,19 @@ def _attrs(node) -> dict:
     return {a.name: helper.get_attribute_value(a) for a in node.attribute}
 
 
+def _elem_type(L, name: str):
+    """The 8-bit type of `name` (its ONNX type, or the one it was quantized to): the type
+    of the default zero point 0 when an integer op leaves it out."""
+    from tinygen.frontend.lower import Const, Int
+
+    v = L.value(name)
+    if isinstance(v, Int) and v.t.quant is not None:
+        return np.dtype(v.t.quant.src_dtype)
+    if isinstance(v, Const):
+        return np.asarray(v.a).dtype
+    return L.view.dtypes.get(name)
+
+
 def _zp(L, node, i, like):
     zp = L.opt_const(node, i, "zero point")
     if zp is None:
@@ -24,10 +37,17 @@ def _zp(L, node, i, like):
 
 
 def operand(L, name: str, scale, zp, axis_for_const: int | None = None):
-    """The IR tensor for a quantized operand: activation, int graph input or constant."""
+    """The IR tensor for a quantized operand: activation, int graph input or constant.
+
+    scale None: the op reads integers only (ConvInteger, MatMulInteger), so an activation
+    keeps whatever scale it was written with; only its zero point must agree.
+    """
     from tinygen.frontend.lower import Const, FloatIn, Int
 
     v = L.value(name)
+    if scale is None:
+        written = v.t.quant if isinstance(v, Int) else None
+        scale = written.scale if written is not None else np.ones(np.shape(zp), np.float32)
     src = np.asarray(zp).dtype
     if src not in (np.int8, np.uint8):
         raise L.error(f"zero point of '{name}' has type {src}; int8 or uint8 expected")
@@ -86,8 +106,8 @@ def qlinear_conv(L, node):
 
 def conv_integer(L, node):
     a = _attrs(node)
-    xzp = _zp(L, node, 2, L.view.dtypes.get(node.input[0]))
-    x = operand(L, node.input[0], np.float32(1.0), xzp)
+    xzp = _zp(L, node, 2, _elem_type(L, node.input[0]))
+    x = operand(L, node.input[0], None, xzp)
     wzp = _zp(L, node, 3, np.asarray(L.const(node.input[1], "weight")).dtype)
     w = operand(L, node.input[1], np.ones(np.shape(wzp), np.float32), wzp, axis_for_const=0)
     bias = np.zeros(w.shape[0], np.int32)
@@ -108,10 +128,10 @@ def qlinear_matmul(L, node):
 
 
 def matmul_integer(L, node):
-    xzp = _zp(L, node, 2, L.view.dtypes.get(node.input[0]))
-    x = operand(L, node.input[0], np.float32(1.0), xzp)
-    wzp = _zp(L, node, 3, L.view.dtypes.get(node.input[1]))
-    w = _matmul_right(L, node.input[1], np.ones(np.shape(wzp), np.float32), wzp)
+    xzp = _zp(L, node, 2, _elem_type(L, node.input[0]))
+    x = operand(L, node.input[0], None, xzp)
+    wzp = _zp(L, node, 3, _elem_type(L, node.input[1]))
+    w = _matmul_right(L, node.input[1], None, wzp)
     _bind(L, node.output[0], ops.emit_fc(L.b, node.output[0], x, w, None, None, FULL, "kn"))
 
 

@@ -1,0 +1,51 @@
+"""Hypothesis profiles of the fuzz tests (registered here, not in the shared tests/conftest.py).
+
+  ci        the default: a few hundred cases over all fuzz tests, a few minutes on 2 cores;
+            derandomized, so CI sees the same cases every run (unless --hypothesis-seed)
+  campaign  long (make fuzz): many more cases per test, fresh random cases every run
+
+Each fuzz test takes a share of its profile's max_examples (tests/fuzz/budget.py), so an
+expensive test (compile + C build per case) runs fewer cases than a cheap one.
+
+Replaying a failure: hypothesis prints the falsifying example and a @reproduce_failure blob.
+A campaign without --hypothesis-seed picks a seed, prints it in the session header, and
+`--hypothesis-seed=S` replays the same cases (with any profile: a given seed turns
+derandomize off, so the seed decides).
+"""
+from __future__ import annotations
+
+import random
+
+import pytest
+from hypothesis import HealthCheck, settings
+
+SLOW_OK = [HealthCheck.too_slow, HealthCheck.data_too_large, HealthCheck.filter_too_much]
+
+
+def register(derandomize_ci: bool) -> None:
+    settings.register_profile("ci", max_examples=100, deadline=None, print_blob=True,
+                              derandomize=derandomize_ci, suppress_health_check=SLOW_OK)
+    settings.register_profile("campaign", max_examples=2000, deadline=None, print_blob=True,
+                              derandomize=False, suppress_health_check=SLOW_OK)
+
+
+register(derandomize_ci=True)
+
+
+@pytest.hookimpl(tryfirst=True)
+def pytest_configure(config):
+    """Before hypothesis' own plugin reads the options: settle the seed of this session."""
+    seed = config.getoption("--hypothesis-seed", None)
+    if seed is not None:
+        register(derandomize_ci=False)
+    elif config.getoption("--hypothesis-profile", None) == "campaign":
+        config.option.hypothesis_seed = str(random.SystemRandom().randrange(2**32))
+
+
+def pytest_terminal_summary(terminalreporter, config):
+    """Last lines of the run (shown with -q too): the profile and how to replay it."""
+    seed = config.getoption("--hypothesis-seed", None)
+    profile = config.getoption("--hypothesis-profile", None) or "ci"
+    how = f"seed {seed}; replay with --hypothesis-profile={profile} --hypothesis-seed={seed}" \
+        if seed is not None else "derandomized (the same cases every run)"
+    terminalreporter.write_line(f"tinygen fuzz: profile {profile}, {how}")
