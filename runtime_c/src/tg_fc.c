@@ -2,63 +2,36 @@
  *
  * Accumulators are int32 and are not checked: x - x_zp and w - w_zp both lie in [-255, 255],
  * and the compiler only emits a layer whose |bias| + depth*255*255 fits in int32.
- * Contiguous weights (w_stride_k == 1, the constant [out][depth] layout) run one dot product
- * per output; any other stride (the run-time [depth][out] operand) accumulates a block of
- * outputs at once, walking each weight row along w_stride_o. The dot product has the same
- * DSP-extension path as tg_conv.c (kept private to each file: no shared internal header).
+ * Contiguous weights (w_stride_k == 1, the constant [out][depth] layout) take two outputs per
+ * pass over x, so each x word loaded and widened serves both weight rows; any other stride
+ * (the run-time [depth][out] operand) accumulates a block of outputs at once, walking each
+ * weight row along w_stride_o. A weight zero point comes off at the end on both paths:
+ * sum (x - xz)(w - wz) = sum (x - xz) w - wz * sum (x - xz).
+ * Cores with the DSP extension (Cortex-M4/M7/M33...) run the two-output loop as short inline
+ * assembly with SXTAB16/SXTB16/SMLAD (four products per SMLAD pair); other cores, other
+ * compilers and unoptimized builds (where gcc cannot give the assembly its registers) run
+ * plain C. The helpers are private to this file, as in tg_conv.c.
  */
 #include "tg_fc.h"
 
 #include <string.h>
 
-#if defined(__ARM_FEATURE_DSP) && defined(__ARM_FEATURE_SIMD32)
-#include <arm_acle.h>
+#if defined(__ARM_FEATURE_DSP) && defined(__ARM_FEATURE_SIMD32) && defined(__GNUC__) \
+    && defined(__OPTIMIZE__)
 #define TG_FC_DSP 1
 #else
 #define TG_FC_DSP 0
 #endif
 
+/* Kept out of line: inlined into the output loop, gcc -Os spills its live values. */
+#if defined(__GNUC__)
+#define TG_FC_NOINLINE __attribute__((noinline))
+#else
+#define TG_FC_NOINLINE
+#endif
+
 /* Outputs accumulated together on the strided path (a stack array, no scratch needed). */
 #define TG_FC_BLOCK 16
-
-#if TG_FC_DSP
-static inline uint32_t tg_fc_ror8(uint32_t v)
-{
-    return (v >> 8) | (v << 24);
-}
-
-/* Both int16 lanes set to -zp; x - zp then fits a lane (|x - zp| <= 255). */
-static inline int16x2_t tg_fc_neg_pair(int32_t zp)
-{
-    return (int16x2_t)((uint32_t)(uint16_t)(-zp) * 0x00010001u);
-}
-#endif
-
-/* sum over i < len of (x[i] - xz) * (w[i] - wz). */
-static inline int32_t tg_fc_dot(const int8_t *x, const int8_t *w, int32_t len, int32_t xz,
-                                int32_t wz)
-{
-    int32_t acc = 0;
-    int32_t i = 0;
-#if TG_FC_DSP
-    /* Four terms per step: bytes 0,2 and bytes 1,3 widen to int16 pairs for two SMLADs. */
-    const int16x2_t x_off = tg_fc_neg_pair(xz);
-    const int16x2_t w_off = tg_fc_neg_pair(wz);
-    for (; i + 4 <= len; i += 4) {
-        uint32_t xv;
-        uint32_t wv;
-        memcpy(&xv, x + i, sizeof xv);
-        memcpy(&wv, w + i, sizeof wv);
-        acc = __smlad(__sxtab16(x_off, (int8x4_t)xv), __sxtab16(w_off, (int8x4_t)wv), acc);
-        acc = __smlad(__sxtab16(x_off, (int8x4_t)tg_fc_ror8(xv)),
-                      __sxtab16(w_off, (int8x4_t)tg_fc_ror8(wv)), acc);
-    }
-#endif
-    for (; i < len; ++i) {
-        acc += ((int32_t)x[i] - xz) * ((int32_t)w[i] - wz);
-    }
-    return acc;
-}
 
 static inline void tg_fc_store(const tg_requant_t *rq, void *y, int32_t idx, int32_t acc,
                                int32_t o)
@@ -70,21 +43,83 @@ static inline void tg_fc_store(const tg_requant_t *rq, void *y, int32_t idx, int
     }
 }
 
-/* Weights contiguous along depth: one dot product per output. */
+/* acc[0] += sum (x[i] - xz) * w0[i], acc[1] likewise with w1, over i < len. */
+static TG_FC_NOINLINE void tg_fc_dot_1x2(const int8_t *x, const int8_t *w0, const int8_t *w1,
+                                         int32_t len, int32_t xz, int32_t acc[2])
+{
+    int32_t a0 = acc[0], a1 = acc[1];
+    int32_t n;
+#if TG_FC_DSP
+    if (len >= 4) {
+        const uint32_t off = (uint32_t)(uint16_t)(-xz) * 0x00010001u;  /* -xz in both lanes */
+        uint32_t xe, xv, wv, we;
+        n = len >> 2;
+        /* x - xz of bytes 0,2 (xe) and 1,3 (xv) as int16 lanes, widened once for both rows. */
+        __asm__ volatile(
+            "1:\n\t"
+            "ldr     %[xv], [%[x]], #4\n\t"
+            "sxtab16 %[xe], %[off], %[xv]\n\t"
+            "sxtab16 %[xv], %[off], %[xv], ror #8\n\t"
+            "ldr     %[wv], [%[w0]], #4\n\t"
+            "sxtb16  %[we], %[wv]\n\t"
+            "sxtb16  %[wv], %[wv], ror #8\n\t"
+            "smlad   %[a0], %[xe], %[we], %[a0]\n\t"
+            "smlad   %[a0], %[xv], %[wv], %[a0]\n\t"
+            "ldr     %[wv], [%[w1]], #4\n\t"
+            "sxtb16  %[we], %[wv]\n\t"
+            "sxtb16  %[wv], %[wv], ror #8\n\t"
+            "smlad   %[a1], %[xe], %[we], %[a1]\n\t"
+            "smlad   %[a1], %[xv], %[wv], %[a1]\n\t"
+            "subs    %[n], %[n], #1\n\t"
+            "bne     1b"
+            : [a0] "+r"(a0), [a1] "+r"(a1), [x] "+r"(x), [w0] "+r"(w0), [w1] "+r"(w1),
+              [n] "+r"(n), [xe] "=&r"(xe), [xv] "=&r"(xv), [wv] "=&r"(wv), [we] "=&r"(we)
+            : [off] "r"(off)
+            : "cc", "memory");
+        len &= 3;
+    }
+#endif
+    for (n = len; n != 0; --n) {
+        const int32_t xv = (int32_t)*x++ - xz;
+        a0 += xv * *w0++;
+        a1 += xv * *w1++;
+    }
+    acc[0] = a0;
+    acc[1] = a1;
+}
+
+/* Sum of x[k] - xz over k < depth (for a weight zero point). */
+static int32_t tg_fc_x_sum(const int8_t *x, int32_t depth, int32_t xz)
+{
+    int32_t s = 0;
+    int32_t k;
+    for (k = 0; k < depth; ++k) {
+        s += (int32_t)x[k] - xz;
+    }
+    return s;
+}
+
+/* Weights contiguous along depth: two outputs per pass (a lone last one pairs with itself). */
 static void tg_fc_rows_contiguous(const tg_fc_params_t *p, const int8_t *xr, const int8_t *w,
                                   const int32_t *bias, void *y, int32_t yi)
 {
+    const int32_t x_sum = p->w_zp != NULL ? tg_fc_x_sum(xr, p->depth, p->x_zp) : 0;
     int32_t o;
-    for (o = 0; o < p->out; ++o) {
-        const int8_t *wo = w + o * p->w_stride_o;
-        int32_t acc = bias != NULL ? bias[o] : 0;
-        /* Two call sites so the w_zp == NULL copy drops the weight offset. */
-        if (p->w_zp == NULL) {
-            acc += tg_fc_dot(xr, wo, p->depth, p->x_zp, 0);
-        } else {
-            acc += tg_fc_dot(xr, wo, p->depth, p->x_zp, p->w_zp[o]);
+    for (o = 0; o < p->out; o += 2) {
+        const int32_t o1 = o + 1 < p->out ? o + 1 : o;
+        int32_t acc[2];
+        acc[0] = bias != NULL ? bias[o] : 0;
+        acc[1] = bias != NULL ? bias[o1] : 0;
+        tg_fc_dot_1x2(xr, w + o * p->w_stride_o, w + o1 * p->w_stride_o, p->depth, p->x_zp,
+                      acc);
+        if (p->w_zp != NULL) {
+            acc[0] -= p->w_zp[o] * x_sum;
+            acc[1] -= p->w_zp[o1] * x_sum;
         }
-        tg_fc_store(p->rq, y, yi + o, acc, o);
+        tg_fc_store(p->rq, y, yi + o, acc[0], o);
+        if (o1 != o) {
+            tg_fc_store(p->rq, y, yi + o1, acc[1], o1);
+        }
     }
 }
 
@@ -108,10 +143,7 @@ static void tg_fc_block_strided(const tg_fc_params_t *p, const int8_t *xr, const
     }
     /* sum (x - xz) * (w - wz) = sum (x - xz) * w - wz * sum (x - xz): one pass per block. */
     if (p->w_zp != NULL) {
-        int32_t x_sum = 0;
-        for (k = 0; k < p->depth; ++k) {
-            x_sum += (int32_t)xr[k] - p->x_zp;
-        }
+        const int32_t x_sum = tg_fc_x_sum(xr, p->depth, p->x_zp);
         for (j = 0; j < count; ++j) {
             acc[j] -= p->w_zp[o0 + j] * x_sum;
         }
