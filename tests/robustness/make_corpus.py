@@ -318,6 +318,14 @@ def _overflowing_accumulator() -> onnx.ModelProto:
     return build(nodes, [(_init("b", b) if i.name == "b" else i) for i in inits], ins, outs)
 
 
+def _external_data_present(p: Path) -> None:
+    """Weights in a file beside the model: onnx would read it relative to the current
+    folder, not the model's, so tinygen refuses external data outright."""
+    m = qdq_model()
+    onnx.save_model(m, p, save_as_external_data=True, all_tensors_to_one_file=True,
+                    location=p.stem + ".weights", size_threshold=0)
+
+
 def _external_data_outside() -> onnx.ModelProto:
     """External data pointing outside the model's folder (must never be read)."""
     m = _external_data()
@@ -458,7 +466,8 @@ def cases() -> list[Case]:
         Case("pool_kernel_too_big", save_parts(set_attr(qdq(), "pool1",
                                                         kernel_shape=[9, 9])),
              "larger than the padded input", node="pool1", op="MaxPool"),
-        Case("external_data_missing", save(_external_data()), "missing_weights.bin"),
+        Case("external_data_missing", save(_external_data()), "external file"),
+        Case("external_data_present", _external_data_present, "external file"),
         Case("flash_limit", save(qdq_model()), "--flash-limit", args=["--flash-limit", "64"]),
         Case("arena_limit", save(qdq_model()), "--arena-limit", args=["--arena-limit", "0x40"]),
         Case("huge_activation", save(_huge_activation()), "bytes"),
@@ -472,7 +481,7 @@ def cases() -> list[Case]:
             op="DequantizeLinear"),
         Case("multiplier_too_large", save_parts(replace_init(qdq(), "s_c", _f32(1e-38))),
              "multiplier", node="conv1", op="Conv"),
-        Case("external_data_outside_folder", save(_external_data_outside()), "passwd"),
+        Case("external_data_outside_folder", save(_external_data_outside()), "external file"),
         Case("duplicate_output_name", save(_duplicate_output()), "'r'"),
         Case("graph_output_not_produced", save(_output_not_produced()), "'zz'"),
         Case("no_nodes", save(_no_nodes()), "no nodes"),

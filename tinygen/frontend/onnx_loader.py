@@ -73,6 +73,15 @@ def _read_model(path: str) -> tuple[onnx.ModelProto, bytes]:
         raise TinygenError("not an ONNX model (the protobuf does not parse)", file=path) from None
     if not model.HasField("graph") or len(model.graph.node) == 0:
         raise TinygenError("not an ONNX model (no graph or no nodes)", file=path)
+    # onnx would look for external data relative to the current folder, and the file hash
+    # in the emitted header would not cover it: refuse it, whatever the location says
+    tensors = list(model.graph.initializer) + [a.t for n in model.graph.node
+                                               for a in n.attribute if a.HasField("t")]
+    for t in tensors:
+        if t.data_location == onnx.TensorProto.EXTERNAL:
+            raise TinygenError(f"tensor '{t.name}' keeps its data in an external file; save "
+                               "the model with its weights inside (onnx.save_model(..., "
+                               "save_as_external_data=False))", file=path)
     return model, raw
 
 
