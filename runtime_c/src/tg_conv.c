@@ -37,6 +37,7 @@
 #define TG_CONV_PATCH 128  /* patch elements of one pixel held at once (a multiple of 4) */
 #define TG_CONV_BLOCK 32   /* output channels whose partial sums are kept between pieces */
 #define TG_DW_TABLE 512    /* int16 weights of one depthwise channel block (1 KiB) */
+#define TG_DW_BLOCK 32     /* most channels in one depthwise block */
 
 /* Taps k in [*lo, *hi) keep base + k*dil inside [0, in); an empty range has *lo == *hi. */
 static void tg_conv_tap_range(int32_t base, int32_t dil, int32_t k, int32_t in,
@@ -439,16 +440,22 @@ typedef union {
     uint32_t words[TG_DW_TABLE / 2];  /* word alignment for the DSP loads */
 } tg_dw_table_t;
 
+/* Fills the table; wsum[j] = sum over all taps of channel j's table weights. */
 static void tg_dwconv_table(const tg_conv_params_t *p, const int8_t *w, int32_t c0, int32_t nc,
-                            tg_dw_table_t *wt)
+                            tg_dw_table_t *wt, int32_t *wsum)
 {
     const int32_t taps = p->k_h * p->k_w;
     int32_t j, t;
     for (j = 0; j < ((nc + 3) & ~3); ++j) {
         const int32_t wz = (j < nc && p->w_zp != NULL) ? p->w_zp[c0 + j] : 0;
         int16_t *col = wt->h + (j >> 2) * taps * 4 + (j & 3);
+        int32_t sum = 0;
         for (t = 0; t < taps; ++t) {
             col[t * 4] = (int16_t)(j < nc ? w[(c0 + j) * taps + t] - wz : 0);
+            sum += col[t * 4];
+        }
+        if (j < nc) {
+            wsum[j] = sum;
         }
     }
 }
@@ -532,13 +539,24 @@ static TG_CONV_NOINLINE void tg_dwconv_quad(const int8_t *xr, const int16_t *wr,
     int32_t a0 = a[0], a1 = a[1], a2 = a[2], a3 = a[3];
     int32_t r, n;
     for (r = wk->rows; r != 0; --r) {
-        for (n = cols; n != 0; --n) {
-            a0 += ((int32_t)xr[0] - in_zp) * wr[0];
-            a1 += ((int32_t)xr[1] - in_zp) * wr[1];
-            a2 += ((int32_t)xr[2] - in_zp) * wr[2];
-            a3 += ((int32_t)xr[3] - in_zp) * wr[3];
-            xr += x_step;
-            wr += 4;
+        if (in_zp == 0) {  /* the caller folded the zero point into a: one op less per MAC */
+            for (n = cols; n != 0; --n) {
+                a0 += xr[0] * wr[0];
+                a1 += xr[1] * wr[1];
+                a2 += xr[2] * wr[2];
+                a3 += xr[3] * wr[3];
+                xr += x_step;
+                wr += 4;
+            }
+        } else {
+            for (n = cols; n != 0; --n) {
+                a0 += ((int32_t)xr[0] - in_zp) * wr[0];
+                a1 += ((int32_t)xr[1] - in_zp) * wr[1];
+                a2 += ((int32_t)xr[2] - in_zp) * wr[2];
+                a3 += ((int32_t)xr[3] - in_zp) * wr[3];
+                xr += x_step;
+                wr += 4;
+            }
         }
         xr += x_row;
         wr += w_row;
@@ -573,8 +591,11 @@ void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
                const int32_t *bias, void *y)
 {
     const int32_t taps = p->k_h * p->k_w;
-    const int32_t block = (TG_DW_TABLE / taps) & ~3;  /* channels whose weights fit the table */
+    const int32_t fits = (TG_DW_TABLE / taps) & ~3;  /* channels whose weights fit the table */
+    const int32_t block = fits < TG_DW_BLOCK ? fits : TG_DW_BLOCK;
     tg_dw_table_t wt;
+    int32_t wsum[TG_DW_BLOCK];
+    int32_t acc[TG_DW_BLOCK];
     int32_t c0, b, oy, ox, j;
     if (p->out_c != p->in_c || block < 4) {
         tg_dwconv_general(p, x, w, bias, y);
@@ -583,35 +604,30 @@ void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
     for (c0 = 0; c0 < p->out_c; c0 += block) {
         const int32_t nc = p->out_c - c0 < block ? p->out_c - c0 : block;
         int32_t yi = c0;
-        tg_dwconv_table(p, w, c0, nc, &wt);
+        tg_dwconv_table(p, w, c0, nc, &wt, wsum);
         for (b = 0; b < p->n; ++b) {
             const int8_t *xc = x + b * p->in_h * p->in_w * p->in_c + c0;
             for (oy = 0; oy < p->out_h; ++oy) {
                 for (ox = 0; ox < p->out_w; ++ox) {
                     const tg_conv_window_t win = tg_conv_window(p, oy, ox);
                     const tg_dw_walk_t wk = tg_dwconv_walk(p, &win);
-                    const int empty = wk.rows == 0 || wk.cols == 0;
-                    for (j = 0; j + 4 <= nc; j += 4) {
-                        int32_t a[4];
-                        a[0] = bias[c0 + j];
-                        a[1] = bias[c0 + j + 1];
-                        a[2] = bias[c0 + j + 2];
-                        a[3] = bias[c0 + j + 3];
-                        if (!empty) {
-                            tg_dwconv_quad(xc + wk.x0 + j, wt.h + j * taps + wk.w0, &wk,
-                                           p->in_zp, a);
-                        }
-                        tg_conv_put(p->rq, y, yi + j, a, c0 + j, 4);
+                    /* Plain C, whole window: sum (x - zp)w = sum xw - zp * sum w. */
+                    const int fold = !TG_CONV_DSP && wk.rows == p->k_h && wk.cols == p->k_w;
+                    const int32_t zp = fold ? 0 : p->in_zp;
+                    for (j = 0; j < nc; ++j) {
+                        acc[j] = bias[c0 + j] - (fold ? p->in_zp * wsum[j] : 0);
                     }
-                    for (; j < nc; ++j) {
-                        int32_t acc = bias[c0 + j];
-                        if (!empty) {
-                            acc += tg_dwconv_single(xc + wk.x0 + j,
-                                                    wt.h + (j & ~3) * taps + wk.w0 + (j & 3),
-                                                    &wk, p->in_zp);
+                    if (wk.rows != 0 && wk.cols != 0) {
+                        for (j = 0; j + 4 <= nc; j += 4) {
+                            tg_dwconv_quad(xc + wk.x0 + j, wt.h + j * taps + wk.w0, &wk, zp,
+                                           acc + j);
                         }
-                        tg_conv_put(p->rq, y, yi + j, &acc, c0 + j, 1);
+                        for (; j < nc; ++j) {
+                            acc[j] += tg_dwconv_single(xc + wk.x0 + j, wt.h + (j & ~3) * taps
+                                                       + wk.w0 + (j & 3), &wk, zp);
+                        }
                     }
+                    tg_conv_put(p->rq, y, yi, acc, c0, nc);
                     yi += p->out_c;
                 }
             }
