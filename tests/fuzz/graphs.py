@@ -173,7 +173,7 @@ def draw_branches(g: Shaped, kind: str) -> None:
 
 
 def draw_layer(g: Shaped) -> None:
-    kind = g.draw(st.sampled_from(["conv", "conv", "conv_act", "MaxPool", "AveragePool",
+    kind = g.draw(st.sampled_from(["conv", "conv_act", "conv_act", "MaxPool", "AveragePool",
                                    "GlobalAveragePool", "Pad", "Transpose", "Concat", "Add",
                                    "Mul"]))
     if kind == "conv":
@@ -181,6 +181,8 @@ def draw_layer(g: Shaped) -> None:
     elif kind == "conv_act":
         draw_conv(g)
         draw_activation(g)
+        if g.layers[-1] in ("Tanh", "HardSwish", "HardSigmoid"):
+            draw_conv(g)  # onnxruntime quantizes these only when a quantized op reads them
     elif kind in ("MaxPool", "AveragePool", "GlobalAveragePool"):
         draw_pool(g, kind)
     elif kind == "Pad":
