@@ -254,11 +254,19 @@ static inline void tg_conv_dot_2x2_groups(const int16_t *x0, const int8_t *w0,
 #define TG_CONV_NOINLINE
 #endif
 
+/* The plain-C 2x2 loop stays out of line (inlined into the row loop, gcc -Os spills it);
+ * the assembly loop is inlined, its registers being its own anyway. */
+#if TG_CONV_DSP
+#define TG_CONV_DOT_LINKAGE static inline
+#else
+#define TG_CONV_DOT_LINKAGE static TG_CONV_NOINLINE
+#endif
+
 /* acc0 += {x0.w0, x0.w1}, acc1 += {x1.w0, x1.w1} over len patch elements (x0, x1: the
  * two pixels' patches). */
-static TG_CONV_NOINLINE void tg_conv_dot_2x2(const tg_conv_patches_t *xw, const int8_t *w0,
-                                             const int8_t *w1, int32_t len, int32_t *acc0,
-                                             int32_t *acc1)
+TG_CONV_DOT_LINKAGE void tg_conv_dot_2x2(const tg_conv_patches_t *xw, const int8_t *w0,
+                                         const int8_t *w1, int32_t len, int32_t *acc0,
+                                         int32_t *acc1)
 {
     const int16_t *x0 = xw->h[0];
     int32_t a00, a01, a10, a11;
@@ -288,6 +296,19 @@ static TG_CONV_NOINLINE void tg_conv_dot_2x2(const tg_conv_patches_t *xw, const 
     acc0[1] = a01;
     acc1[0] = a10;
     acc1[1] = a11;
+}
+
+/* The dot products of nc weight rows (k_len apart, from w) with both patches, two rows at a
+ * time (a lone last row pairs with itself; its twin lands in the spare slot acc[nc]). */
+static TG_CONV_NOINLINE void tg_conv_dot_rows(const tg_conv_patches_t *xw, const int8_t *w,
+                                              int32_t nc, int32_t k_len, int32_t len,
+                                              int32_t *acc0, int32_t *acc1)
+{
+    int32_t j;
+    for (j = 0; j < nc; j += 2) {
+        const int8_t *w0 = w + j * k_len;
+        tg_conv_dot_2x2(xw, w0, j + 1 < nc ? w0 + k_len : w0, len, acc0 + j, acc1 + j);
+    }
 }
 
 /* Sum of len int8 values. */
@@ -345,12 +366,7 @@ static void tg_conv_pixel_pair(const tg_conv_job_t *job, int32_t pix, int32_t pi
         if (p->w_zp != NULL) {
             xsum1 += tg_conv_sum(src, len) - len * p->in_zp;
         }
-        for (j = 0; j < nc; j += 2) {
-            const int8_t *w0 = wb + j * k_len + k0;
-            /* a lone last channel pairs with itself; its twin lands in the spare slot */
-            tg_conv_dot_2x2(&s->xw, w0, j + 1 < nc ? w0 + k_len : w0, len, s->acc[0] + j,
-                            s->acc[1] + j);
-        }
+        tg_conv_dot_rows(&s->xw, wb + k0, nc, k_len, len, s->acc[0], s->acc[1]);
     }
     if (p->w_zp != NULL) {
         for (j = 0; j < nc; ++j) {
