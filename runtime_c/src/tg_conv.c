@@ -9,16 +9,20 @@
  * zero point comes off at the end: sum x'(w - wz) = sum x'w - wz * sum x' (x' = x - in_zp).
  * A patch longer than TG_CONV_PATCH is taken in pieces. The sums of up to TG_CONV_BLOCK
  * channels wait in a stack array and are requantized one pixel at a time.
- * tg_dwconv (multiplier 1) runs four channels at a time: one input word holds four
+ * tg_dwconv with multiplier 1 runs four channels at a time: one input word holds four
  * neighbouring channels, and a per-call table of int16 weights in [tap][channel] order
  * holds their weights side by side. The valid tap range is worked out once per pixel, so
  * the tap loops never test for padding.
  *
+ * Other multipliers, and kernels too large for the table, take a plain per-channel loop.
+ *
  * Accumulators are int32 and are not checked: the compiler only emits a convolution whose
- * |bias| + k_h*k_w*(in_c/groups)*255*255 fits in int32; every partial sum below is a part of
- * sum x'(w - wz) or of sum x'w and - wz*sum x', each within that bound. Element offsets are
- * int32 (tensors on the target are far below 2^31 elements).
- * Cores with the DSP extension (Cortex-M4/M7/M33...) run the inner loops as short inline
+ * |bias| + k_h*k_w*(in_c/groups)*255*255 fits in int32. Every partial sum below is the bias
+ * plus, tap by tap, terms of at most 255*255 in magnitude ((x - in_zp)*w with w a weight or
+ * w - w_zp; with a folded zero point, x*w' - in_zp*w' = (x - in_zp)*w'), so it stays within
+ * that bound; - w_zp*sum(x - in_zp) is such a sum too. Element offsets are int32 (tensors on
+ * the target are far below 2^31 elements).
+ * Cores with the DSP extension (Cortex-M4/M7/M33...) run the inner loops as short GNU inline
  * assembly (gcc -Os would spill their twelve registers) with SXTB16/SMLAD and SMLAxy.
  * Other cores, other compilers and unoptimized builds (where gcc cannot give the assembly
  * twelve registers) run plain C loops on the same buffers.
@@ -247,7 +251,7 @@ static inline void tg_conv_dot_2x2_groups(const int16_t *x0, const int8_t *w0,
 }
 #endif
 
-/* Kept out of line: inlined into the pixel loop, gcc -Os spills its eight live values. */
+/* GNU C's noinline, for loops that gcc -Os would spill when inlined into their callers. */
 #if defined(__GNUC__)
 #define TG_CONV_NOINLINE __attribute__((noinline))
 #else
@@ -506,46 +510,36 @@ static TG_CONV_NOINLINE void tg_dwconv_quad(const int8_t *xr, const int16_t *wr,
 {
 #if TG_CONV_DSP
     const uint32_t off = tg_conv_neg_pair(in_zp);
-    const int32_t x_step = wk->x_step;
-    const int32_t x_row = wk->x_row;
-    const int32_t w_row_bytes = wk->w_row * 2;
-    const int32_t cols = wk->cols;
-    int32_t rows = wk->rows;
+    const int32_t x_step = wk->x_step, x_row = wk->x_row, w_row = wk->w_row, cols = wk->cols;
     int32_t a0 = a[0], a1 = a[1], a2 = a[2], a3 = a[3];
-    int32_t n = cols;
-    uint32_t v, e, wv;
-    /* x - in_zp of channels c, c+2 (e) and c+1, c+3 (v) as int16 lanes; the weight words
-     * hold channels c, c+1 and c+2, c+3, so SMLAxy picks the matching lanes. The per-row
-     * values wait in memory: the tap loop needs the twelve registers. */
-    __asm__ volatile(
-        "1:\n\t"
-        "ldr     %[v], [%[x]]\n\t"
-        "add     %[x], %[x], %[xs]\n\t"
-        "ldr     %[wv], [%[w]], #4\n\t"
-        "sxtab16 %[e], %[off], %[v]\n\t"
-        "sxtab16 %[v], %[off], %[v], ror #8\n\t"
-        "smlabb  %[a0], %[e], %[wv], %[a0]\n\t"
-        "smlabt  %[a1], %[v], %[wv], %[a1]\n\t"
-        "ldr     %[wv], [%[w]], #4\n\t"
-        "smlatb  %[a2], %[e], %[wv], %[a2]\n\t"
-        "smlatt  %[a3], %[v], %[wv], %[a3]\n\t"
-        "subs    %[n], %[n], #1\n\t"
-        "bne     1b\n\t"
-        "ldr     %[v], %[xrow]\n\t"
-        "add     %[x], %[x], %[v]\n\t"
-        "ldr     %[v], %[wrow]\n\t"
-        "add     %[w], %[w], %[v]\n\t"
-        "ldr     %[n], %[cols]\n\t"
-        "ldr     %[v], %[rows]\n\t"
-        "subs    %[v], %[v], #1\n\t"
-        "str     %[v], %[rows]\n\t"
-        "bne     1b"
-        : [a0] "+r"(a0), [a1] "+r"(a1), [a2] "+r"(a2), [a3] "+r"(a3),
-          [x] "+r"(xr), [w] "+r"(wr), [n] "+r"(n), [rows] "+m"(rows),
-          [v] "=&r"(v), [e] "=&r"(e), [wv] "=&r"(wv)
-        : [xs] "r"(x_step), [off] "r"(off),
-          [xrow] "m"(x_row), [wrow] "m"(w_row_bytes), [cols] "m"(cols)
-        : "cc", "memory");
+    int32_t r;
+    for (r = wk->rows; r != 0; --r) {
+        int32_t n = cols;
+        uint32_t v, e, wv;
+        /* x - in_zp of channels c, c+2 (e) and c+1, c+3 (v) as int16 lanes; the weight
+         * words hold channels c, c+1 and c+2, c+3, so SMLAxy picks the matching lanes. */
+        __asm__ volatile(
+            "1:\n\t"
+            "ldr     %[v], [%[x]]\n\t"
+            "add     %[x], %[x], %[xs]\n\t"
+            "ldr     %[wv], [%[w]], #4\n\t"
+            "sxtab16 %[e], %[off], %[v]\n\t"
+            "sxtab16 %[v], %[off], %[v], ror #8\n\t"
+            "smlabb  %[a0], %[e], %[wv], %[a0]\n\t"
+            "smlabt  %[a1], %[v], %[wv], %[a1]\n\t"
+            "ldr     %[wv], [%[w]], #4\n\t"
+            "smlatb  %[a2], %[e], %[wv], %[a2]\n\t"
+            "smlatt  %[a3], %[v], %[wv], %[a3]\n\t"
+            "subs    %[n], %[n], #1\n\t"
+            "bne     1b"
+            : [a0] "+r"(a0), [a1] "+r"(a1), [a2] "+r"(a2), [a3] "+r"(a3),
+              [x] "+r"(xr), [w] "+r"(wr), [n] "+r"(n),
+              [v] "=&r"(v), [e] "=&r"(e), [wv] "=&r"(wv)
+            : [xs] "r"(x_step), [off] "r"(off)
+            : "cc", "memory");
+        xr += x_row;
+        wr += w_row;
+    }
     a[0] = a0;
     a[1] = a1;
     a[2] = a2;
