@@ -263,6 +263,7 @@ class QopBuilder:
         self.draw, self.act, self.wdt = draw, act_dtype, w_dtype
         self.nodes, self.inits, self.layers = [], [], []
         self._n = 0
+        self.max_channels = 6
 
     def name(self, base: str) -> str:
         self._n += 1
@@ -301,7 +302,7 @@ def _qconv(b: QopBuilder, x, xq, shape):
     pads = [w[2] for w in wins] + [w[3] for w in wins]
     depthwise = cin > 1 and draw(st.booleans())
     group = cin if depthwise else 1
-    cout = cin if depthwise else draw(st.integers(1, 6))
+    cout = cin if depthwise else draw(st.integers(1, b.max_channels))
     w = _weights(draw, (cout, cin // group, *ks), b.wdt)
     per_channel = draw(st.booleans())
     w_scale = np.array([_log_scale(draw, -4, 1) for _ in range(cout)], np.float32) \
@@ -447,12 +448,15 @@ def _qsoftmax(b: QopBuilder, x, xq, shape):
 
 
 @st.composite
-def qop_graphs(draw) -> QopCase:
-    """x -Q-> (QLinearConv | pooling | QLinear unary)* [-> Flatten -> QLinearMatMul] -DQ-> y."""
+def qop_graphs(draw, max_channels: int = 6, max_spatial: int = 9) -> QopCase:
+    """x -Q-> (QLinearConv | pooling | QLinear unary | binary | shape)* [-> QLinearMatMul
+    | ConvInteger | MatMulInteger] [-DQ->] y. Larger sizes reach the kernels' blocked paths."""
     act = draw(st.sampled_from([np.uint8, np.int8]))
     b = QopBuilder(draw, act, draw(st.sampled_from([np.int8, np.uint8])))
+    b.max_channels = max_channels
     rank = draw(st.sampled_from([3, 4]))
-    shape = [1, draw(st.integers(1, 5))] + [draw(st.integers(1, 9)) for _ in range(rank - 2)]
+    shape = [1, draw(st.integers(1, max_channels))] + [draw(st.integers(1, max_spatial))
+                                                      for _ in range(rank - 2)]
     xq = b.quant()
     x = "xq"
     b.node("QuantizeLinear", ["x", *xq], [x])

@@ -122,6 +122,14 @@ def test_extreme_qoperator_graphs_are_bit_exact(case, opts, seed):
         check_bit_exact(model_file(case, Path(tmp)), opts, seed)
 
 
+@fuzz_settings(0.3, suppress_health_check=list(HealthCheck))
+@given(qop_graphs(max_channels=40, max_spatial=18), build_options(), st.integers(0, 2**16))
+def test_large_qoperator_graphs_are_bit_exact(case, opts, seed):
+    """Up to 40 channels and 18 pixels a side: the kernels' blocked and unrolled paths."""
+    with tempfile.TemporaryDirectory(prefix="tinygen-fuzz-") as tmp:
+        check_bit_exact(model_file(case, Path(tmp)), opts, seed)
+
+
 @needs_asan
 @fuzz_settings(0.08, suppress_health_check=list(HealthCheck))
 @given(st.one_of(float_nets(), qop_graphs()), build_options(), st.integers(0, 2**16))

@@ -86,3 +86,24 @@ def reference_output(c, x: np.ndarray) -> np.ndarray:
     """tinygen's reference output (here int32) for float input x, in ONNX layout."""
     out = run_reference(c.graph, storage_inputs(c.graph, [x]), c.plan.order)
     return logical_outputs(c.graph, out)[0]
+
+
+def test_fuzz_harness_reports_a_one_lsb_difference(tmp_path, monkeypatch):
+    """The cached build really runs the C: a reference off by one LSB must show."""
+    from dataclasses import replace
+
+    import tinygen.kernels
+    path = tmp_path / "m.onnx"
+    onnx.save(_conv_model(), path)
+    c = compile_model(str(path), BuildOptions())
+    samples = random_inputs(c.graph, 2)
+    cache = ObjectCache()
+    assert cached_check(cache, c, str(path), samples).bit_exact
+    real = tinygen.kernels.KERNELS["tg_conv"]
+
+    def off_by_one(p, *args):
+        y = np.asarray(real.reference(p, *args)).astype(np.int16)
+        return np.clip(y + 1, -128, 127).astype(np.int8)
+    monkeypatch.setitem(tinygen.kernels.KERNELS, "tg_conv", replace(real, reference=off_by_one))
+    res = cached_check(cache, c, str(path), samples)
+    assert not res.bit_exact and res.mismatched_elements > 0
