@@ -1,8 +1,11 @@
 """Hypothesis profiles of the fuzz tests (registered here, not in the shared tests/conftest.py).
 
-  ci        the default: a few hundred cases over all fuzz tests, a few minutes on 2 cores;
-            derandomized, so CI sees the same cases every run (unless --hypothesis-seed)
-  campaign  long (make fuzz): many more cases per test, fresh random cases every run
+  ci        the default: several hundred cases over all fuzz tests, a few minutes on 2 cores;
+            derandomized and without the example database, so CI sees the same cases every
+            run (unless --hypothesis-seed); no shrinking (a graph case costs a C build, and
+            shrinking one can take minutes): a failure is reported as drawn
+  campaign  long (make fuzz): many more cases per test, fresh random cases every run,
+            failures shrunk and kept in the example database (.hypothesis/)
 
 Each fuzz test takes a share of its profile's max_examples (tests/fuzz/budget.py), so an
 expensive test (compile + C build per case) runs fewer cases than a cheap one.
@@ -17,14 +20,16 @@ from __future__ import annotations
 import random
 
 import pytest
-from hypothesis import HealthCheck, settings
+from hypothesis import HealthCheck, Phase, settings
 
 SLOW_OK = [HealthCheck.too_slow, HealthCheck.data_too_large, HealthCheck.filter_too_much]
 
 
 def register(derandomize_ci: bool) -> None:
     settings.register_profile("ci", max_examples=100, deadline=None, print_blob=True,
-                              derandomize=derandomize_ci, suppress_health_check=SLOW_OK)
+                              derandomize=derandomize_ci, database=None,
+                              phases=[Phase.explicit, Phase.generate],
+                              suppress_health_check=SLOW_OK)
     settings.register_profile("campaign", max_examples=2000, deadline=None, print_blob=True,
                               derandomize=False, suppress_health_check=SLOW_OK)
 

@@ -441,7 +441,10 @@ def _integer_tail(b: QopBuilder, x, xq, shape, in_shape) -> QopCase:
 
 
 def _qsoftmax(b: QopBuilder, x, xq, shape):
-    yq, y = b.quant(), b.name("softmax")
+    # outputs lie in [0, 1]: a scale near 1/256 (within a factor 10), as quantizers choose;
+    # tg_softmax refuses scales far outside (256 / s_y must fit int32)
+    s_y = np.float32(10.0 ** b.draw(st.floats(-1, 1)) / 256)
+    yq, y = (b.const(s_y, "s"), b.const(_zero_point(b.draw, b.act), "z")), b.name("softmax")
     b.node("QLinearSoftmax", [x, *xq, *yq], [y], domain="com.microsoft", axis=-1, opset=13)
     b.layers.append("QLinearSoftmax(axis=-1)")
     return y, yq, shape
