@@ -147,7 +147,12 @@ def compare_onnxruntime(g: Graph, model_path: str, samples, ours_all) -> dict:
                            "(pip install onnxruntime)") from None
     so = ort.SessionOptions()
     so.log_severity_level = 3
-    sess = ort.InferenceSession(model_path, so, providers=["CPUExecutionProvider"])
+    try:
+        sess = ort.InferenceSession(model_path, so, providers=["CPUExecutionProvider"])
+    except Exception as exc:  # onnxruntime raises its own exception types
+        first = (str(exc).strip().splitlines() or ["(no message)"])[0][:200]
+        raise TinygenError(f"onnxruntime cannot load the model for --against-onnxruntime: "
+                           f"{first}", file=model_path) from None
     names = [i.name for i in sess.get_inputs()]
     max_diff, equal, count = 0, 0, 0
     for floats, ours in zip(samples, ours_all, strict=True):

@@ -223,19 +223,12 @@ VERBS = {"emit": cmd_emit, "check": cmd_check, "plan": cmd_plan, "emulate": cmd_
          "report": cmd_report}
 
 
-def error_line(exc: TinygenError) -> str:
-    """`FILE: node 'N': op OP: reason` (docs/cli.md), on one line whatever the names hold."""
-    parts = [exc.file, f"node '{exc.node}'" if exc.node else "",
-             f"op {exc.op}" if exc.op else "", exc.reason]
-    return " ".join(": ".join(p for p in parts if p).split())
-
-
 def main(argv: list[str] | None = None) -> int:
     try:
         args = make_parser().parse_args(argv)
         return VERBS[args.verb](args)
     except TinygenError as exc:
-        print(f"tinygen: error: {error_line(exc)}", file=sys.stderr)
+        print(f"tinygen: error: {exc.one_line()}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("tinygen: interrupted", file=sys.stderr)

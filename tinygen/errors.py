@@ -13,7 +13,7 @@ class TinygenError(Exception):
         self.op = op
 
     def one_line(self) -> str:
-        where = [p for p in (self.file, f"node '{self.node}'" if self.node else "",
-                             f"op {self.op}" if self.op else "") if p]
-        text = ": ".join([", ".join(where), self.reason]) if where else self.reason
-        return " ".join(text.split())
+        """`FILE: node 'N': op OP: reason` (docs/cli.md), one line whatever the names hold."""
+        parts = [self.file, f"node '{self.node}'" if self.node else "",
+                 f"op {self.op}" if self.op else "", self.reason]
+        return " ".join(": ".join(p for p in parts if p).split())
