@@ -28,6 +28,7 @@
  * twelve registers) run plain C loops on the same buffers.
  */
 #include "tg_conv.h"
+#include "tg_window.h"
 
 #include <string.h>
 
@@ -43,22 +44,6 @@
 #define TG_DW_TABLE 512    /* int16 weights of one depthwise channel block (1 KiB) */
 #define TG_DW_BLOCK 32     /* most channels in one depthwise block */
 
-/* Taps k in [*lo, *hi) keep base + k*dil inside [0, in); an empty range has *lo == *hi. */
-static void tg_conv_tap_range(int32_t base, int32_t dil, int32_t k, int32_t in,
-                              int32_t *lo, int32_t *hi)
-{
-    int32_t first = 0;
-    int32_t end = k;
-    if (base < 0) {
-        first = (-base + dil - 1) / dil;
-    }
-    if (base + (k - 1) * dil >= in) {
-        end = (in - 1 - base < 0) ? 0 : (in - 1 - base) / dil + 1;
-    }
-    *lo = first;
-    *hi = end > first ? end : first;
-}
-
 /* The valid taps of one output position: k in [lo, hi) reads input base + k*dil. */
 typedef struct {
     int32_t ky0, ky1, kx0, kx1;
@@ -70,8 +55,8 @@ static tg_conv_window_t tg_conv_window(const tg_conv_params_t *p, int32_t oy, in
     tg_conv_window_t win;
     win.base_y = oy * p->stride_h - p->pad_top;
     win.base_x = ox * p->stride_w - p->pad_left;
-    tg_conv_tap_range(win.base_y, p->dil_h, p->k_h, p->in_h, &win.ky0, &win.ky1);
-    tg_conv_tap_range(win.base_x, p->dil_w, p->k_w, p->in_w, &win.kx0, &win.kx1);
+    tg_tap_range(win.base_y, p->dil_h, p->k_h, p->in_h, &win.ky0, &win.ky1);
+    tg_tap_range(win.base_x, p->dil_w, p->k_w, p->in_w, &win.kx0, &win.kx1);
     return win;
 }
 

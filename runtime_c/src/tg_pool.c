@@ -7,26 +7,11 @@
  * the runtimes they mirror (taps row-major, one rounding per operation).
  */
 #include "tg_pool.h"
+#include "tg_window.h"
 
 #include <string.h>
 
 #define TG_POOL_BLOCK 32
-
-/* Taps k in [*lo, *hi) keep base + k*dil inside [0, in); an empty range has *lo == *hi. */
-static void tg_pool_tap_range(int32_t base, int32_t dil, int32_t k, int32_t in,
-                              int32_t *lo, int32_t *hi)
-{
-    int32_t first = 0;
-    int32_t end = k;
-    if (base < 0) {
-        first = (-base + dil - 1) / dil;
-    }
-    if (base + (k - 1) * dil >= in) {
-        end = (in - 1 - base < 0) ? 0 : (in - 1 - base) / dil + 1;
-    }
-    *lo = first;
-    *hi = end > first ? end : first;
-}
 
 /* The valid taps of one output position and the input row/column they start from. */
 typedef struct {
@@ -39,8 +24,8 @@ static tg_pool_window_t tg_pool_window(const tg_pool_params_t *p, int32_t oy, in
     tg_pool_window_t w;
     w.base_y = oy * p->stride_h - p->pad_top;
     w.base_x = ox * p->stride_w - p->pad_left;
-    tg_pool_tap_range(w.base_y, p->dil_h, p->k_h, p->in_h, &w.ky0, &w.ky1);
-    tg_pool_tap_range(w.base_x, p->dil_w, p->k_w, p->in_w, &w.kx0, &w.kx1);
+    tg_tap_range(w.base_y, p->dil_h, p->k_h, p->in_h, &w.ky0, &w.ky1);
+    tg_tap_range(w.base_x, p->dil_w, p->k_w, p->in_w, &w.kx0, &w.kx1);
     return w;
 }
 

@@ -185,8 +185,14 @@ class TreeWriter:
         }
 
 
+# Private headers a kernel family's C file includes besides its own header.
+PRIVATE_HEADERS = {"conv": ("tg_window.h",), "pool": ("tg_window.h",)}
+
+
 def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
     files = [("tg_requant.h", RUNTIME / "include" / "tg_requant.h")]
+    private = sorted({h for f in families for h in PRIVATE_HEADERS.get(f, ())})
+    files += [(h, RUNTIME / "include" / h) for h in private]
     for f in sorted(families):
         files.append((f"tg_{f}.h", RUNTIME / "include" / f"tg_{f}.h"))
         files.append((f"tg_{f}.c", RUNTIME / "src" / f"tg_{f}.c"))
