@@ -2,7 +2,7 @@
 
 For each scenario this script
   1. synthesizes labelled data of our own (no downloads, fixed seeds),
-  2. trains a small torch model on CPU for a few seconds,
+  2. trains a small torch model on CPU (seconds to a few minutes, single-threaded),
   3. exports the float model with torch.onnx.export(..., dynamo=False, opset_version=17)
      to examples/<name>/<name>_float.onnx,
   4. quantizes it with onnxruntime.quantization.quantize_static, calibrated on generated
@@ -714,7 +714,9 @@ SCENARIOS = [
             "BatchNorm layers were folded into the convolutions by the exporter. Four "
             "inverted-residual blocks (1x1 expand x6, ReLU6, 3x3 depthwise, ReLU6, 1x1 linear "
             "project), the first at 32x32 with 96 expanded channels; the two blocks whose "
-            "input and output shapes match add their input back."
+            "input and output shapes match add their input back. The quantizer drops the "
+            "ReLU6 (Clip 0..6) nodes, folding them into the output ranges of the producers, "
+            "and leaves the Constant nodes that held the Clip bounds unused."
         ),
     ),
 ]
