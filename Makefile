@@ -8,7 +8,7 @@ DEMO_OUT := out/pump_vibration
 
 .PHONY: demo test lint bench fuzz toolchain tables clean
 
-$(VENV)/.installed: pyproject.toml
+$(VENV)/.installed: pyproject.toml setup.py
 	$(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install -q --upgrade pip
 	$(PY) -m pip install -q -e '.[test]'

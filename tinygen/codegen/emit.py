@@ -28,9 +28,10 @@ from tinygen.compiler import Compiled
 from tinygen.errors import TinygenError
 from tinygen.kernels import KERNELS
 from tinygen.passes.layout import storage_data
+from tinygen.resources import runtime_dir, templates_dir
 
-RUNTIME = Path(__file__).resolve().parent.parent.parent / "runtime_c"
-TEMPLATES = Path(__file__).resolve().parent / "templates"
+RUNTIME = runtime_dir()
+TEMPLATES = templates_dir()
 
 
 def _env() -> jinja2.Environment:
