@@ -26,6 +26,7 @@ from tinygen.codegen.cfmt import (
 )
 from tinygen.compiler import Compiled
 from tinygen.errors import TinygenError
+from tinygen.ir import storage_perm
 from tinygen.kernels import KERNELS
 from tinygen.passes.layout import storage_data
 from tinygen.resources import runtime_dir, templates_dir
@@ -38,6 +39,11 @@ def _env() -> jinja2.Environment:
     return jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
                               trim_blocks=True, lstrip_blocks=True,
                               undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
+
+
+# Value range of each I/O buffer type, as C constant expressions.
+IO_RANGES = {"int8": ("(-128)", "127"), "uint8": ("0", "255"),
+             "int32": ("(-2147483647 - 1)", "2147483647")}
 
 
 class TreeWriter:
@@ -118,27 +124,37 @@ class TreeWriter:
         return [f"{call.func}(&{pname}, {', '.join(args)});"]
 
     def io_entries(self, ios, is_input: bool) -> list[dict]:
+        """What the header says about each input/output: C type, range, storage dims."""
         out = []
-        for io in ios:
+        kind = "input" if is_input else "output"
+        for index, io in enumerate(ios):
             t = self.g.tensors[io.name]
             buf, _ = self.plan.offset_of(io.name)
-            dims = t.storage_shape()
+            dims = list(t.storage_shape())
             q = io.quant
+            lo, hi = IO_RANGES[io.buffer_dtype]
             entry = {
+                "index": index,
                 "comment": c_comment_text(io.onnx_name, 60),
                 "ctype": C_TYPES[io.buffer_dtype],
+                "tname": f"{self.P}_{kind}_{index}_t",
+                "macro": f"{self.G}_{kind.upper()}_{index}",
+                "elem": io.buffer_dtype.upper(),
+                "lo": lo, "hi": hi,
+                "dims": dims, "rank": len(dims),
+                "onnx_axes": list(storage_perm(len(t.shape), t.layout)),
+                "onnx_dims_comment": "x".join(map(str, t.shape)),
                 "dims_comment": "x".join(map(str, dims)),
                 "size": t.size,
                 "bytes": t.nbytes,
                 "quant": q is not None and io.buffer_dtype != "int32",
+                "scale": "0.0f", "zp": "0",
                 "arena_expr": None if buf.external else f"(void *){self.ptr(io.name)}",
             }
             if entry["quant"]:
                 zp = q.scalar_zp() + (128 if io.buffer_dtype == "uint8" else 0)
                 entry["scale"] = c_float(q.scalar_scale())
                 entry["zp"] = str(zp)
-                entry["lo"], entry["hi"] = (0, 255) if io.buffer_dtype == "uint8" else \
-                    (-128, 127)
             out.append(entry)
         return out
 
@@ -180,6 +196,9 @@ class TreeWriter:
             "inputs": self.io_entries(g.inputs, True),
             "outputs": self.io_entries(g.outputs, False),
             "io_mode_comment": "--io " + c.options.io,
+            "io_external": c.options.io == "external",
+            "max_rank": max([len(self.g.tensors[io.name].shape)
+                             for io in [*g.inputs, *g.outputs]] + [1]),
             "decls": self.pw.decls, "calls": calls, "headers": headers,
             "prologue": pro, "epilogue": epi, "flips": bool(pro or epi),
             "extra_regions": extra, "float_mode": c.options.requant == "float",
