@@ -91,7 +91,11 @@ def make_parser() -> argparse.ArgumentParser:
     e = sub.add_parser("emit", help="write the C tree (model.c/model.h + kernels)")
     e.add_argument("model")
     e.add_argument("-o", "--output", required=True, metavar="OUTDIR")
-    e.add_argument("--force", action="store_true", help="replace an existing OUTDIR")
+    into = e.add_mutually_exclusive_group()
+    into.add_argument("--force", action="store_true", help="replace an existing OUTDIR")
+    into.add_argument("--add", action="store_true",
+                      help="add this model to the models already in OUTDIR (one firmware, "
+                           "one set of kernels)")
     add_build_flags(e)
     c = sub.add_parser("check", help="compile on the host, compare with the reference")
     c.add_argument("model")
@@ -131,9 +135,14 @@ def cmd_emit(args) -> int:
     from tinygen.compiler import compile_model, summary
     c = compile_model(args.model, build_options(args))
     files = render_tree(c, flags_text(args))
-    names = write_tree(files, args.output, args.force)
+    if args.add:
+        from tinygen.codegen.emit import add_model_to_folder
+        files = add_model_to_folder(c, files, args.output)
+    names = write_tree(files, args.output, args.force or args.add)
     info = summary(c)
     info["files"] = names
+    info["models"] = sorted(n[:-2] for n in names if n.endswith(".h") and
+                            f"{n[:-2]}_sources.mk" in names)
     info["const_bytes"] = c.const_bytes
     if args.json:
         print(json.dumps(info))

@@ -202,7 +202,15 @@ class TreeWriter:
             "decls": self.pw.decls, "calls": calls, "headers": headers,
             "prologue": pro, "epilogue": epi, "flips": bool(pro or epi),
             "extra_regions": extra, "float_mode": c.options.requant == "float",
+            "needs": config_needs(c),
         }
+
+
+def config_needs(c: Compiled) -> list[str]:
+    """The tg_config.h switches this model's kernels must have on (DEVELOPERS.md, "Kernel
+    configuration"): <prefix>.c refuses to compile against kernels configured without them,
+    and a folder shared by several models turns on every switch one of them needs."""
+    return ["TG_WITH_FLOAT_REQUANT"] if c.options.requant == "float" else []
 
 
 # Private headers a kernel family's C file includes besides its own header.
@@ -219,6 +227,30 @@ def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
     return files
 
 
+def kernel_files(families) -> dict[str, str]:
+    """{name: text} of the runtime files the kernel families need (byte copies)."""
+    return {name: src.read_text() for name, src in runtime_files(set(families))}
+
+
+def runtime_file_names() -> set[str]:
+    """Every runtime file name a tree may hold."""
+    return {name for name, _ in runtime_files({k.family for k in KERNELS.values()})}
+
+
+def render_shared(models, needs: list[str]) -> dict[str, str]:
+    """tg_config.h for kernels serving `models` (codegen.folder.FolderModel: prefix,
+    families, needs) and each model's build snippets, which list its .c and its kernels."""
+    env = _env()
+    files = {"tg_config.h": env.get_template("tg_config.h.j2").render(
+        needs=needs, models=[(m.prefix, m.requant) for m in models])}
+    for m in models:
+        sources = sorted([f"{m.prefix}.c", *(f"tg_{f}.c" for f in m.families)])
+        ctx = {"P": m.prefix, "G": m.prefix.upper(), "sources": sources, "needs": needs}
+        files[f"{m.prefix}_sources.cmake"] = env.get_template("sources.cmake.j2").render(**ctx)
+        files[f"{m.prefix}_sources.mk"] = env.get_template("sources.mk.j2").render(**ctx)
+    return files
+
+
 def render_tree(c: Compiled, flags: str) -> dict[str, str]:
     """All files of the tree as {name: text}, deterministic for the same input."""
     try:
@@ -232,15 +264,19 @@ def render_tree(c: Compiled, flags: str) -> dict[str, str]:
     files: dict[str, str] = {}
     files[f"{w.P}.c"] = env.get_template("model.c.j2").render(**ctx)
     files[f"{w.P}.h"] = env.get_template("model.h.j2").render(**ctx)
-    files["tg_config.h"] = env.get_template("tg_config.h.j2").render(**ctx)
-    for name, src in runtime_files(w.families):
-        files[name] = src.read_text()
-    sources = sorted(n for n in files if n.endswith(".c"))
-    sctx = dict(ctx, sources=sources)
-    files[f"{w.P}_sources.cmake"] = env.get_template("sources.cmake.j2").render(**sctx)
-    files[f"{w.P}_sources.mk"] = env.get_template("sources.mk.j2").render(**sctx)
+    files.update(kernel_files(w.families))
+    from tinygen.codegen.folder import FolderModel
+    files.update(render_shared([FolderModel(w.P, sorted(w.families), ctx["needs"])],
+                               ctx["needs"]))
     c.const_bytes = w.pw.const_bytes
     return files
+
+
+def add_model_to_folder(c: Compiled, files: dict[str, str], out_dir: str) -> dict[str, str]:
+    """emit --add: the model's rendered tree merged with the models already in out_dir."""
+    from tinygen.codegen.folder import add_to_folder
+    families = sorted(n[3:-2] for n in files if n.startswith("tg_") and n.endswith(".c"))
+    return add_to_folder(files, c.options.prefix, families, config_needs(c), out_dir)
 
 
 def write_tree(files: dict[str, str], out_dir: str, force: bool) -> list[str]:
