@@ -39,6 +39,17 @@ class BuildOptions:
     io: str = "arena"
 
 
+def options_text(opts: BuildOptions) -> str:
+    """The build flags as the emitted files state them (header comment, 'Flags:')."""
+    parts = [f"--requant {opts.requant}", f"--planner {opts.planner}", f"--order {opts.order}",
+             f"--align {opts.align}", f"--io {opts.io}"]
+    if not opts.inplace:
+        parts.append("--no-inplace")
+    parts += [f"--region {n}={s}" for n, s in opts.regions]
+    parts += [f"--input-shape {s}" for s in opts.input_shapes]
+    return " ".join(parts)
+
+
 @dataclass
 class Compiled:
     graph: Graph
