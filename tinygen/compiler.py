@@ -126,8 +126,36 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
     return c
 
 
+def region_name_problem(name: str) -> str:
+    """Why `name` cannot name a memory region ('' when it can). Names become C identifiers
+    (<prefix>_region_<name>, <PREFIX>_REGION_<NAME>_BYTES) with their spelling kept."""
+    import re
+    if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,15}", name):
+        return (f"region name '{name}' must be a C identifier: letters, digits and _, "
+                "not starting with a digit, at most 16")
+    return ""
+
+
+def check_regions(regions: list[tuple[str, int]]) -> None:
+    """Refuse region lists the plan cannot take: bad or repeated names (compared without
+    case, as the macros upper-case them), sizes below one byte."""
+    seen: dict[str, str] = {}
+    for name, size in regions:
+        problem = region_name_problem(name)
+        if problem:
+            raise TinygenError(f"--region {name}={size}: {problem}")
+        if name.upper() in seen:
+            same = "given twice" if seen[name.upper()] == name else \
+                f"and '{seen[name.upper()]}' differ only in case (names are case-insensitive)"
+            raise TinygenError(f"--region '{name}' {same}: each region needs its own name")
+        seen[name.upper()] = name
+        if size < 1:
+            raise TinygenError(f"--region {name}={size}: a region needs at least one byte")
+
+
 def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
     """Schedule, build buffers and place them; the plan is verified before it is returned."""
+    check_regions(opts.regions)
     if opts.align < 4 or opts.align & (opts.align - 1):
         raise TinygenError(f"--align {opts.align} must be a power of two >= 4")
     probe, owner = build_buffers(graph, list(range(len(graph.ops))), opts.inplace, opts.io)
