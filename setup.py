@@ -4,6 +4,7 @@ through importlib.resources; everything else is in pyproject.toml."""
 from setuptools import find_namespace_packages, setup
 
 setup(
-    packages=find_namespace_packages(include=["tinygen", "tinygen.*"]) + ["tinygen.runtime_c"],
+    packages=find_namespace_packages(include=["tinygen", "tinygen.*"])
+    + ["tinygen.runtime_c", "tinygen.runtime_c.include", "tinygen.runtime_c.src"],
     package_dir={"tinygen.runtime_c": "runtime_c"},
 )

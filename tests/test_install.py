@@ -19,6 +19,8 @@ from pathlib import Path
 
 import pytest
 
+# One worker builds and installs the wheel for both tests (pytest-xdist --dist loadgroup).
+pytestmark = pytest.mark.xdist_group("wheel_install")
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLE = ROOT / "examples" / "pump_vibration"
 SOURCES = ("pyproject.toml", "setup.py", "README.md", "tinygen", "runtime_c")

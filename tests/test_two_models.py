@@ -15,6 +15,8 @@ import pytest
 from tests.firmware_progs import PRINT_C, c_bytes, reference_io, run_host, run_target, samples_for
 from tinygen.compiler import BuildOptions, compile_model
 
+# The module's program is built once, on one worker (pytest-xdist --dist loadgroup).
+pytestmark = pytest.mark.xdist_group("two_models")
 ROOT = Path(__file__).resolve().parent.parent
 CAM = ROOT / "examples" / "door_camera" / "door_camera.onnx"
 PUMP = ROOT / "examples" / "pump_vibration" / "pump_vibration.onnx"

@@ -98,8 +98,9 @@ class Model:
 
     @property
     def figures(self) -> dict:
-        """The figures `tinygen plan --json` prints, plus flash_bytes."""
-        return dict(summary(self.compiled), flash_bytes=self.flash_bytes)
+        """The figures `tinygen plan --json` prints, plus flash_bytes (= const_bytes)."""
+        return dict(summary(self.compiled), const_bytes=self.flash_bytes,
+                    flash_bytes=self.flash_bytes)
 
     @property
     def per_op(self) -> list[dict]:
