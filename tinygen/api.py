@@ -192,14 +192,14 @@ class Model:
                 f"{self.flash_bytes} B, {self.macs} MACs>")
 
 
-def compile(model: str | Path, *, requant: str = "fixed", prefix: str = "model",  # noqa: A001
+def compile(model: str | Path, *, requant: str = "fixed", prefix: str = "model",
             input_shapes: list[str] | None = None, planner: str = "greedy-size",
             order: str = "given", align: int = 8, arena_limit: int | str | None = None,
             flash_limit: int | str | None = None, inplace: bool = True,
             regions: list[tuple[str, int | str]] | None = None, io: str = "arena") -> Model:
     """Compile an 8-bit quantized ONNX model; the keywords are the CLI's build flags
     (docs/cli.md). Sizes take 262144, "256K", "1M" or "0x40000". Raises TinygenError
-    for a model or flag tinygen cannot take (its message is the CLI's one line)."""
+    for a model or flag tinygen cannot take (error.one_line() is the CLI's message)."""
     from tinygen.codegen.cfmt import check_prefix
     try:
         check_prefix(prefix)
@@ -210,7 +210,9 @@ def compile(model: str | Path, *, requant: str = "fixed", prefix: str = "model",
                         arena_limit=_size(arena_limit), flash_limit=_size(flash_limit),
                         inplace=inplace,
                         regions=[(n, _size(s)) for n, s in (regions or [])], io=io)
+    from tinygen.plan import PLANNERS
     for name, value, allowed in (("requant", requant, ("fixed", "float")),
+                                 ("planner", planner, tuple(PLANNERS)),
                                  ("order", order, ("given", "min-peak")),
                                  ("io", io, ("arena", "external"))):
         if value not in allowed:

@@ -5,6 +5,7 @@ made. The result carries every figure the CLI reports.
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -129,7 +130,6 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
 def region_name_problem(name: str) -> str:
     """Why `name` cannot name a memory region ('' when it can). Names become C identifiers
     (<prefix>_region_<name>, <PREFIX>_REGION_<NAME>_BYTES) with their spelling kept."""
-    import re
     if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,15}", name):
         return (f"region name '{name}' must be a C identifier: letters, digits and _, "
                 "not starting with a digit, at most 16")
@@ -138,7 +138,7 @@ def region_name_problem(name: str) -> str:
 
 def check_regions(regions: list[tuple[str, int]]) -> None:
     """Refuse region lists the plan cannot take: bad or repeated names (compared without
-    case, as the macros upper-case them), sizes below one byte."""
+    case, as the macros upper-case them)."""
     seen: dict[str, str] = {}
     for name, size in regions:
         problem = region_name_problem(name)
@@ -149,8 +149,6 @@ def check_regions(regions: list[tuple[str, int]]) -> None:
                 f"and '{seen[name.upper()]}' differ only in case (names are case-insensitive)"
             raise TinygenError(f"--region '{name}' {same}: each region needs its own name")
         seen[name.upper()] = name
-        if size < 1:
-            raise TinygenError(f"--region {name}={size}: a region needs at least one byte")
 
 
 def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
