@@ -225,6 +225,29 @@ def lower_float_op(L, node) -> None:
         pa = dict(attrs, **({"global": True} if op == "GlobalAveragePool" else {}))
         pending(lambda o, q, *a: ops.emit_pool(b, "avgpool", o, x, q, pa), x.quant)
         return
+    if op == "ReduceMean":
+        x = L.deq_tensor(node.input[0])
+        axes = attrs.get("axes")  # an attribute before opset 18, then an input
+        if axes is None and len(node.input) > 1 and node.input[1]:
+            axes = L.const(node.input[1], "ReduceMean axes").reshape(-1).tolist()
+        axes = ops.reduce_axes(b, len(x.shape), axes, int(attrs.get("noop_with_empty_axes", 0)))
+        if axes is None:  # noop_with_empty_axes and no axes: the input itself
+            L.env[out] = Deq(ops.emit_view(b, out, x, x.shape))
+            return
+        keep = bool(attrs.get("keepdims", 1))
+        pending(lambda o, q, *a: ops.emit_reduce_mean(b, o, x, q, axes, keep), x.quant)
+        return
+    if op in VIEWS and isinstance(L.value(node.input[0]), Pending):
+        # a reshape between a float op and its QuantizeLinear: quantize, then reshape
+        # (the same bytes), so the op still gets the QuantizeLinear's scale
+        src = L.value(node.input[0])
+
+        def view_after(o, q, *act):
+            t = src.finish(o + "_pre", q, *act)
+            b.at(*here)
+            return lower_data_movement(L, node, t, attrs, o)
+        L.env[out] = Pending(view_after, src.transparent_q, src.act, src.node, src.op, {})
+        return
     if op == "Softmax":
         x = L.deq_tensor(node.input[0])
         axis = int(attrs.get("axis", -1 if L.opset >= 13 else 1))
@@ -322,6 +345,8 @@ def _pad_value(L, node, x) -> int:
 
 
 FLOAT_OPS = ("Conv", "Gemm", "MatMul", "Add", "Mul", "Concat", "MaxPool", "AveragePool",
-             "GlobalAveragePool", "Relu", "Clip", "LeakyRelu", "Sigmoid", "Tanh",
+             "GlobalAveragePool", "ReduceMean", "Relu", "Clip", "LeakyRelu", "Sigmoid", "Tanh",
              "HardSigmoid", "HardSwish", "Softmax", "Reshape", "Flatten", "Squeeze",
              "Unsqueeze", "Transpose", "Pad", "Identity")
+# Ops that only give the same bytes another shape.
+VIEWS = ("Reshape", "Flatten", "Squeeze", "Unsqueeze", "Identity")
