@@ -207,11 +207,18 @@ def lower_float_op(L, node) -> None:
             bias, bscale = _bias(L, node.input[2] if len(node.input) > 2 else "")
         n = w.shape[0] if layout == "nk" else w.shape[-1]
 
-        def fin(o, q, kind, lo, hi):
-            bi = None if bias is None else ops.bias_to_int32(b, bias, bscale, x.quant,
-                                                            w.quant, n)
-            return ops.emit_fc(b, o, x, w, bi, q, activation_range(kind, lo, hi, q), layout)
-        pending(fin, fusable=True)
+        def with_bias(bias, bscale):
+            def fin(o, q, kind, lo, hi):
+                bi = None if bias is None else ops.bias_to_int32(b, bias, bscale, x.quant,
+                                                                w.quant, n)
+                return ops.emit_fc(b, o, x, w, bi, q, activation_range(kind, lo, hi, q),
+                                   layout)
+            return fin
+        pending(with_bias(bias, bscale), fusable=True)
+        if bias is None and w.is_const and len(w.shape) == 2:  # an Add may bring the bias
+            L.env[out].extra.update(with_bias=with_bias, bias_size=n, rank=len(x.shape))
+        return
+    if op == "Add" and _fold_bias(L, node, out):
         return
     if op in ("Add", "Mul"):
         a, c = L.deq_tensor(node.input[0]), L.deq_tensor(node.input[1])
@@ -262,6 +269,37 @@ def lower_float_op(L, node) -> None:
     # Data movement keeps the input's scale: emit now, as a dequantized value.
     x = L.deq_tensor(node.input[0])
     L.env[out] = Deq(lower_data_movement(L, node, x, attrs, out))
+
+
+def _fold_bias(L, node, out) -> bool:
+    """MatMul then Add of a constant vector, both in float before one QuantizeLinear (a
+    Linear layer as exporters write it): the vector becomes the fully connected op's bias."""
+    from tinygen.frontend.lower import Const, Deq, Pending
+
+    for mm, other in ((0, 1), (1, 0)):
+        p = L.value(node.input[mm])
+        if not (isinstance(p, Pending) and p.extra.get("with_bias") and p.act[0] is None):
+            continue
+        v = L.value(node.input[other])
+        n = p.extra["bias_size"]
+        if isinstance(v, Const):
+            bias, bscale = np.asarray(v.a, dtype=np.float64), None
+        elif isinstance(v, Deq) and v.t.is_const and v.t.quant is not None \
+                and v.t.quant.scale.size == 1:
+            t = v.t
+            if t.dtype == "int32":
+                bias, bscale = t.data, t.quant.scale
+            else:  # an int8 constant: its real value, re-quantized at s_x * s_w
+                bias = (t.data.astype(np.float64) - t.quant.scalar_zp()) * t.quant.scalar_scale()
+                bscale = None
+        else:
+            continue
+        if bias.size != n or bias.ndim > p.extra["rank"] or (bias.ndim and bias.shape[-1] != n):
+            continue  # not one value per output column: an ordinary Add
+        L.env[out] = Pending(p.extra["with_bias"](bias.reshape(-1), bscale), None,
+                             (None, None, None), p.node, p.op, {"fusable": True})
+        return True
+    return False
 
 
 def lower_data_movement(L, node, x, attrs, out):
