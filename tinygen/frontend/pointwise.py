@@ -110,18 +110,23 @@ def find_regions(view) -> dict[str, Region]:
         if ok and len(keys) == 1:
             origin[n.output[0]] = keys.pop()
 
-    regions: dict[str, Region] = {}
+    # values read outside their family (or graph outputs): each one ends a region, and no
+    # region may pass through one
+    escaping = set()
     for value, key in origin.items():
         made_by = producer.get(value)
-        if made_by is None or made_by.op_type == "DequantizeLinear" or value in outputs:
+        if made_by is None or made_by.op_type == "DequantizeLinear":
             continue
         readers = consumers.get(value, [])
-        inside = [r for r in readers if r.output and origin.get(r.output[0]) == key
-                  and r.op_type != "DequantizeLinear"]
-        if not readers or len(inside) == len(readers):
-            continue  # an intermediate of a larger region, or read by nothing
-        region = _close(value, key, producer, consumers, origin, outputs, const_dq, roots,
-                        position)
+        if value in outputs or any(not r.output or origin.get(r.output[0]) != key
+                                   or r.op_type == "DequantizeLinear" for r in readers):
+            escaping.add(value)
+    regions: dict[str, Region] = {}
+    for value in (v for v in origin if v in escaping):  # the file's order
+        if value in outputs:
+            continue  # a float graph output: nothing quantizes it
+        region = _close(value, origin[value], producer, consumers, origin, outputs, const_dq,
+                        roots, position, escaping)
         if region is not None and not _op_by_op(region, consts):
             regions[value] = region
     return regions
@@ -133,7 +138,8 @@ def _is_scalar_const(name: str, consts: dict, const_dq: dict) -> bool:
     return name in const_dq
 
 
-def _close(result, key, producer, consumers, origin, outputs, const_dq, roots, position):
+def _close(result, key, producer, consumers, origin, outputs, const_dq, roots, position,
+           escaping):
     """The nodes between the DequantizeLinear roots and `result`, if nothing escapes."""
     members, stack, seen = [], [result], set()
     while stack:
@@ -141,6 +147,8 @@ def _close(result, key, producer, consumers, origin, outputs, const_dq, roots, p
         if v in seen:
             continue
         seen.add(v)
+        if v != result and v in escaping:
+            return None  # read outside on the way: stop at once (keeps long chains linear)
         n = producer[v]
         if n.op_type == "DequantizeLinear":
             continue
