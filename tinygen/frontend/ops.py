@@ -340,3 +340,41 @@ def _stored_channels_last(b: Builder, x: Tensor, depth: int = 32) -> bool:
             return False
         name = acts[0]
     return False
+
+
+def emit_batch_norm(b: Builder, out_name: str, x: Tensor, params: list[np.ndarray],
+                    epsilon: float, y_q: QuantParams, act: tuple[int, int]) -> Tensor:
+    """BatchNormalization (inference) as a depthwise 1x1 conv: y = a[c] x + d[c] with
+    a = scale / sqrt(var + epsilon) and d = B - mean a (the ONNX formula, in float64).
+
+    Each a[c] is one int8 weight, +-127 (or 0), at scale |a[c]| / 127: the product is exact
+    up to the float32 rounding of that scale. d becomes the int32 bias at s_x * s_w[c],
+    rounded once. A [N, C] input is viewed as [N, C, 1] (the same bytes).
+    """
+    _need_per_tensor(b, x, "input")
+    rank, channels = len(x.shape), (x.shape[1] if len(x.shape) > 1 else 0)
+    if rank not in (2, 3, 4):
+        raise b.error(f"BatchNormalization of a rank-{rank} tensor is not supported "
+                      "(rank 2, 3 or 4)")
+    scale, bias, mean, var = (np.asarray(p, np.float64).reshape(-1) for p in params)
+    if any(p.size != channels for p in (scale, bias, mean, var)):
+        raise b.error(f"BatchNormalization parameters must have {channels} values each "
+                      "(one per channel)")
+    if np.any(var + epsilon <= 0) or not all(np.all(np.isfinite(p))
+                                             for p in (scale, bias, mean, var)):
+        raise b.error("BatchNormalization parameters must be finite with var + epsilon > 0")
+    a = scale / np.sqrt(var + np.float64(epsilon))
+    offset = bias - mean * a
+    w = np.where(a > 0, 127, np.where(a < 0, -127, 0)).astype(np.int8)
+    w_scale = np.where(a != 0, np.abs(a) / 127, 1.0).astype(np.float32)
+    if np.any(w_scale[a != 0] == 0) or not np.all(np.isfinite(w_scale)):
+        raise b.error("BatchNormalization scale / sqrt(var + epsilon) is out of float32 range")
+    src = x if rank > 2 else emit_view(b, out_name + "_c1", x, (*x.shape, 1))
+    w_q = QuantParams(w_scale, np.zeros(channels, np.int32), 0, "int8")
+    kernel = [1] * (len(src.shape) - 2)
+    wt = b.add_tensor(out_name + "_w", (channels, 1, *kernel), "int8", w_q,
+                      w.reshape(channels, 1, *kernel))
+    bias_q = bias_to_int32(b, offset, None, src.quant, w_q, channels)
+    y = emit_conv(b, out_name if rank > 2 else out_name + "_bn", src, wt, bias_q, y_q, act,
+                  {"group": channels, "kernel_shape": kernel})
+    return y if rank > 2 else emit_view(b, out_name, y, x.shape)

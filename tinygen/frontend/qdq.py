@@ -14,7 +14,7 @@ from tinygen.frontend.build import activation_range, quantize_real
 from tinygen.ir import QuantParams
 
 # Producers a following Relu/Clip can be folded into (their output clamp).
-FUSABLE = {"Conv", "Gemm", "MatMul", "Add", "Mul"}
+FUSABLE = {"Conv", "Gemm", "MatMul", "Add", "Mul", "BatchNormalization"}
 
 
 def _q_params(L, node, out_dtype_hint=None):
@@ -232,6 +232,19 @@ def lower_float_op(L, node) -> None:
         pa = dict(attrs, **({"global": True} if op == "GlobalAveragePool" else {}))
         pending(lambda o, q, *a: ops.emit_pool(b, "avgpool", o, x, q, pa), x.quant)
         return
+    if op == "BatchNormalization":
+        x = L.deq_tensor(node.input[0])
+        if attrs.get("training_mode", 0) or any(o for o in node.output[1:]):
+            raise L.error("BatchNormalization in training mode is not supported")
+        what = ("scale", "B", "mean", "var")
+        params = [_real_const(L, node.input[i + 1], f"BatchNormalization {w}")
+                  for i, w in enumerate(what)]
+        eps = float(attrs.get("epsilon", 1e-5))
+
+        def fin(o, q, kind, lo, hi):
+            return ops.emit_batch_norm(b, o, x, params, eps, q, activation_range(kind, lo, hi, q))
+        pending(fin, fusable=True)
+        return
     if op == "ReduceMean":
         x = L.deq_tensor(node.input[0])
         axes = attrs.get("axes")  # an attribute before opset 18, then an input
@@ -269,6 +282,23 @@ def lower_float_op(L, node) -> None:
     # Data movement keeps the input's scale: emit now, as a dequantized value.
     x = L.deq_tensor(node.input[0])
     L.env[out] = Deq(lower_data_movement(L, node, x, attrs, out))
+
+
+def _real_const(L, name: str, what: str) -> np.ndarray:
+    """The real value of a constant input: a float initializer, or DequantizeLinear of a
+    constant (per-tensor or along its only axis), as the ONNX definition gives it."""
+    from tinygen.frontend.lower import Deq
+
+    v = L.value(name)
+    if isinstance(v, Deq) and v.t.is_const and v.t.quant is not None:
+        t, q = v.t, v.t.quant
+        data = t.data.astype(np.int64)
+        if q.per_axis and data.ndim != 1:
+            raise L.error(f"{what} ('{name}') is quantized along an axis of a rank-{data.ndim} "
+                          "tensor; one value per channel expected")
+        return ((data - np.asarray(q.zero_point, np.int64)).astype(np.float32)
+                * np.asarray(q.scale, np.float32)).astype(np.float32)
+    return np.asarray(L.const(name, what), dtype=np.float32)
 
 
 def _fold_bias(L, node, out) -> bool:
@@ -383,6 +413,7 @@ def _pad_value(L, node, x) -> int:
 
 
 FLOAT_OPS = ("Conv", "Gemm", "MatMul", "Add", "Mul", "Concat", "MaxPool", "AveragePool",
+             "BatchNormalization",
              "GlobalAveragePool", "ReduceMean", "Relu", "Clip", "LeakyRelu", "Sigmoid", "Tanh",
              "HardSigmoid", "HardSwish", "Softmax", "Reshape", "Flatten", "Squeeze",
              "Unsqueeze", "Transpose", "Pad", "Identity")
