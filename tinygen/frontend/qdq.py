@@ -413,9 +413,8 @@ def _pad_value(L, node, x) -> int:
 
 
 FLOAT_OPS = ("Conv", "Gemm", "MatMul", "Add", "Mul", "Concat", "MaxPool", "AveragePool",
-             "BatchNormalization",
-             "GlobalAveragePool", "ReduceMean", "Relu", "Clip", "LeakyRelu", "Sigmoid", "Tanh",
-             "HardSigmoid", "HardSwish", "Softmax", "Reshape", "Flatten", "Squeeze",
-             "Unsqueeze", "Transpose", "Pad", "Identity")
+             "GlobalAveragePool", "ReduceMean", "BatchNormalization", "Relu", "Clip",
+             "LeakyRelu", "Sigmoid", "Tanh", "HardSigmoid", "HardSwish", "Softmax", "Reshape",
+             "Flatten", "Squeeze", "Unsqueeze", "Transpose", "Pad", "Identity")
 # Ops that only give the same bytes another shape.
 VIEWS = ("Reshape", "Flatten", "Squeeze", "Unsqueeze", "Identity")
