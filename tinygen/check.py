@@ -137,22 +137,32 @@ def run_check(c: Compiled, model_path: str, samples: list[list[np.ndarray]], fla
     return CheckResult(len(samples), mismatched == 0, mismatched, total, ort)
 
 
-def compare_onnxruntime(g: Graph, model_path: str, samples, ours_all) -> dict:
-    """Run onnxruntime (default graph optimisations) on the same float inputs; distance in
-    output LSBs: the onnxruntime output is mapped back to integers with the output's scale."""
+def onnxruntime_session(path: str, shown_as: str, optimized_to: str | None = None,
+                        what: str = "--against-onnxruntime"):
+    """An onnxruntime CPU session with its default graph optimisations (which fuse QDQ
+    patterns into integer kernels). optimized_to: also write the optimised graph there.
+    shown_as: the file named in an error."""
     try:
         import onnxruntime as ort
     except ImportError:
-        raise TinygenError("--against-onnxruntime needs the onnxruntime package "
+        raise TinygenError(f"{what} needs the onnxruntime package "
                            "(pip install onnxruntime)") from None
     so = ort.SessionOptions()
     so.log_severity_level = 3
+    if optimized_to:
+        so.optimized_model_filepath = optimized_to
     try:
-        sess = ort.InferenceSession(model_path, so, providers=["CPUExecutionProvider"])
+        return ort.InferenceSession(path, so, providers=["CPUExecutionProvider"])
     except Exception as exc:  # onnxruntime raises its own exception types
         first = (str(exc).strip().splitlines() or ["(no message)"])[0][:200]
-        raise TinygenError(f"onnxruntime cannot load the model for --against-onnxruntime: "
-                           f"{first}", file=model_path) from None
+        raise TinygenError(f"onnxruntime cannot load the model for {what}: "
+                           f"{first}", file=shown_as) from None
+
+
+def compare_onnxruntime(g: Graph, model_path: str, samples, ours_all) -> dict:
+    """Run onnxruntime (default graph optimisations) on the same float inputs; distance in
+    output LSBs: the onnxruntime output is mapped back to integers with the output's scale."""
+    sess = onnxruntime_session(model_path, model_path)
     names = [i.name for i in sess.get_inputs()]
     max_diff, equal, count = 0, 0, 0
     for floats, ours in zip(samples, ours_all, strict=True):

@@ -113,6 +113,8 @@ def make_parser() -> argparse.ArgumentParser:
     c.add_argument("--against-onnxruntime", action="store_true")
     c.add_argument("--sanitize", action="store_true",
                    help="build with AddressSanitizer and UBSan")
+    c.add_argument("--trace", action="store_true",
+                   help="compare every op's output and name the first op that differs")
     add_build_flags(c)
     pl = sub.add_parser("plan", help="show the arena plan")
     pl.add_argument("model")
@@ -188,8 +190,17 @@ def cmd_check(args) -> int:
         res = run_sanitized(c, args.model, samples, flags_text(args), args.against_onnxruntime)
     else:
         res = run_check(c, args.model, samples, flags_text(args), args.against_onnxruntime)
+    traces = []
+    if args.trace:
+        from tinygen.trace import trace_host
+        traces = trace_host(c, samples, flags_text(args), args.model,
+                            args.against_onnxruntime)
+    traced_ok = all(t.equal for t in traces if t.against == "reference")
     if args.json:
-        print(json.dumps(res.as_json()))
+        info = res.as_json()
+        if args.trace:
+            info["trace"] = {t.against: t.as_json() for t in traces}
+        print(json.dumps(info))
     else:
         verdict = "bit-exact" if res.bit_exact else \
             f"MISMATCH in {res.mismatched_elements} of {res.total_elements} elements"
@@ -200,7 +211,9 @@ def cmd_check(args) -> int:
             o = res.onnxruntime
             _show(f"vs onnxruntime: max |diff| {o['max_abs_diff']} LSB, "
                  f"{100 * o['equal_fraction']:.2f}% of elements equal")
-    return 0 if res.bit_exact else 1
+        for t in traces:
+            _say("\n".join(t.lines()))
+    return 0 if res.bit_exact and traced_ok else 1
 
 
 def cmd_plan(args) -> int:

@@ -15,6 +15,14 @@ from tinygen.passes.layout import storage_data
 def run_reference(graph: Graph, inputs: list[np.ndarray], order: list[int] | None = None
                   ) -> list[np.ndarray]:
     """Evaluate the graph; `inputs` are storage-order arrays, one per graph input."""
+    env = run_reference_all(graph, inputs, order)
+    return [env[io.name] for io in graph.outputs]
+
+
+def run_reference_all(graph: Graph, inputs: list[np.ndarray], order: list[int] | None = None
+                      ) -> dict[str, np.ndarray]:
+    """Evaluate the graph and keep every tensor: {name: storage-order array} (constants
+    included once read). What `tinygen check --trace` compares the C's intermediates with."""
     env: dict[str, np.ndarray] = {}
     for io, arr in zip(graph.inputs, inputs, strict=True):
         t = graph.tensors[io.name]
@@ -50,4 +58,4 @@ def run_reference(graph: Graph, inputs: list[np.ndarray], order: list[int] | Non
             else:
                 y = kern.reference(call.params, *args)
         env[out.name] = np.asarray(y).reshape(out.storage_shape()).astype(out.dtype)
-    return [env[io.name] for io in graph.outputs]
+    return env

@@ -20,14 +20,16 @@ class HostModel:
     """A compiled emitted tree loaded in this process."""
 
     def __init__(self, tree: Path, prefix: str, build_dir: Path, cc: str | None = None,
-                 opt: str = "-O2", extra_flags: list[str] | None = None):
+                 opt: str = "-O2", extra_flags: list[str] | None = None, extra_cdef: str = ""):
+        """extra_cdef: declarations of further functions the tree's C files define (a
+        harness file compiled with the tree, e.g. the trace capture of tinygen.trace)."""
         tree = Path(tree)
         sources = sorted(tree.glob("*.c"))
         lib = build_shared(sources, [tree], build_dir, cc=cc, opt=opt,
                            extra_flags=extra_flags)
         cdef = (f"int {prefix}_run(void *arena, void *const *inputs, void *const *outputs);\n"
                 f"void *{prefix}_input(void *arena, int index);\n"
-                f"void *{prefix}_output(void *arena, int index);\n")
+                f"void *{prefix}_output(void *arena, int index);\n" + extra_cdef)
         self.ffi, self.lib = load(cdef, lib)
         self.prefix = prefix
         header = (tree / f"{prefix}.h").read_text()
