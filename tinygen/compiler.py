@@ -38,6 +38,7 @@ class BuildOptions:
     inplace: bool = True
     regions: list[tuple[str, int]] = field(default_factory=list)
     io: str = "arena"
+    tables: str = "onnx"  # Sigmoid/Tanh/Softmax: the ONNX definition, or onnxruntime's own
 
 
 def options_text(opts: BuildOptions) -> str:
@@ -113,7 +114,7 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
     graph = fuse_activation(graph)
     graph = assign_layout(graph)
     graph = isolate_io(graph)
-    graph = lower_params(graph, opts.requant)
+    graph = lower_params(graph, opts.requant, opts.tables)
     graph = check_accumulators(graph)
     plan = plan_arena(graph, opts)
     macs = count_macs(graph)

@@ -51,6 +51,8 @@ KERNELS: dict[str, Kernel] = {
     "tg_add": Kernel("eltwise", "tg_eltwise_params_t", ref_eltwise.add),
     "tg_mul": Kernel("eltwise", "tg_eltwise_params_t", ref_eltwise.mul),
     "tg_softmax": Kernel("softmax", "tg_softmax_params_t", ref_softmax.softmax),
+    "tg_softmax_float": Kernel("softmax", "tg_softmax_float_params_t",
+                               ref_softmax.softmax_float),
     "tg_lut": Kernel("lut", None, lambda p, x: ref_lut.lut(p.table, x)),
     "tg_concat": Kernel("shape", "tg_concat_params_t",
                         lambda p, *parts: ref_shape.concat(p, list(parts))),

@@ -21,4 +21,19 @@ typedef struct {
 
 void tg_softmax(const tg_softmax_params_t *p, const int8_t *x, int8_t *y);
 
+/* tg_softmax_float - the same shapes in float32, as onnxruntime's QLinearSoftmax computes it
+ * (`--tables onnxruntime`, float builds only). exp_table[d] (float, d = max - x) is built at
+ * compile time; per row sum = float sum of exp_table[max - x_i] from the first to the last;
+ * y_i = clamp(out_zp + round_half_even(exp_table[max - x_i] * out_mult / sum), act_min,
+ * act_max), out_mult = floor(1 / s_y). y may not alias x.
+ */
+typedef struct {
+    int32_t rows, len;
+    const float *exp_table;     /* 256 entries */
+    float out_mult;             /* floor(1 / s_y) */
+    int32_t out_zp, act_min, act_max;
+} tg_softmax_float_params_t;
+
+void tg_softmax_float(const tg_softmax_float_params_t *p, const int8_t *x, int8_t *y);
+
 #endif /* TG_SOFTMAX_H */

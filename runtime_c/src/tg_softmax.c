@@ -8,6 +8,8 @@
  */
 #include "tg_softmax.h"
 
+#include "tg_requant.h"
+
 void tg_softmax(const tg_softmax_params_t *p, const int8_t *x, int8_t *y)
 {
     const int64_t inv = p->inv_out_q8;
@@ -37,3 +39,32 @@ void tg_softmax(const tg_softmax_params_t *p, const int8_t *x, int8_t *y)
         y += p->len;
     }
 }
+
+#if TG_WITH_FLOAT_REQUANT
+/* Products and quotients are single float32 operations (no contraction: the build uses
+ * -ffp-contract=off); the quotient is at most out_mult, capped at 512 before rounding so
+ * that tg_round_half_even's exact range (|v| < 2^22) always holds. */
+void tg_softmax_float(const tg_softmax_float_params_t *p, const int8_t *x, int8_t *y)
+{
+    int32_t r, i;
+    for (r = 0; r < p->rows; ++r) {
+        int32_t mx = -128;
+        float sum = 0.0f;
+        for (i = 0; i < p->len; ++i) {
+            mx = x[i] > mx ? x[i] : mx;
+        }
+        for (i = 0; i < p->len; ++i) {
+            sum += p->exp_table[mx - x[i]];
+        }
+        for (i = 0; i < p->len; ++i) {
+            float v = (p->exp_table[mx - x[i]] * p->out_mult) / sum;
+            int32_t q;
+            v = v < 512.0f ? v : 512.0f;
+            q = tg_round_half_even(v) + p->out_zp;
+            y[i] = (int8_t)(q < p->act_min ? p->act_min : (q > p->act_max ? p->act_max : q));
+        }
+        x += p->len;
+        y += p->len;
+    }
+}
+#endif

@@ -192,3 +192,48 @@ def test_clip_matches_onnx_reference():
 
 def test_every_builder_is_covered():
     assert set(ONNX_OPS) | {"clip"} == set(LUT_FUNCTIONS)
+
+
+def qlinear_sigmoid_model(dtype, s_in, z_in, s_out, z_out) -> onnx.ModelProto:
+    tp = TensorProto.INT8 if dtype == np.int8 else TensorProto.UINT8
+    inits = [helper.make_tensor("xs", TensorProto.FLOAT, [], [s_in]),
+             helper.make_tensor("xz", tp, [], [z_in]),
+             helper.make_tensor("ys", TensorProto.FLOAT, [], [s_out]),
+             helper.make_tensor("yz", tp, [], [z_out])]
+    node = helper.make_node("QLinearSigmoid", ["x", "xs", "xz", "ys", "yz"], ["y"],
+                            domain="com.microsoft")
+    graph = helper.make_graph([node], "qsig", [helper.make_tensor_value_info("x", tp, [256])],
+                              [helper.make_tensor_value_info("y", tp, [256])], inits)
+    return helper.make_model(graph, opset_imports=[helper.make_opsetid("", 19),
+                                                   helper.make_opsetid("com.microsoft", 1)])
+
+
+@pytest.mark.parametrize("kind", ["Sigmoid", "Tanh", "QLinearSigmoid"])
+def test_onnxruntime_tables_equal_onnxruntime(kind):
+    # Source: onnxruntime (CPU provider, x86-64): all 256 inputs through DequantizeLinear ->
+    # Sigmoid/Tanh -> QuantizeLinear (its float kernels) and through QLinearSigmoid
+    # (com.microsoft). `--tables onnxruntime` promises every entry equal.
+    name = "tanh" if kind == "Tanh" else "sigmoid"
+    rng = np.random.default_rng(zlib.crc32(kind.encode()))
+    for trial in range(40):
+        dtype = np.int8 if trial % 2 else np.uint8
+        off = 0 if dtype == np.int8 else 128
+        s_in, z_in, s_out, z_out = random_quant(rng, name)
+        if kind == "QLinearSigmoid":
+            model = qlinear_sigmoid_model(dtype, s_in, z_in + off, s_out, z_out + off)
+        else:
+            model = qdq_unary_model(kind, {}, dtype, s_in, z_in + off, s_out, z_out + off)
+        expect = outputs_of(model, dtype, "onnxruntime")
+        table = build_table(name, s_in, z_in, s_out, z_out, precision="onnxruntime")
+        np.testing.assert_array_equal(table.astype(np.int64), expect, err_msg=str(trial))
+
+
+def test_onnxruntime_precision_changes_only_the_approximated_functions():
+    for name in ("hard_swish", "relu", "leaky_relu"):
+        np.testing.assert_array_equal(build_table(name, 0.05, 3, 0.04, -7),
+                                      build_table(name, 0.05, 3, 0.04, -7,
+                                                  precision="onnxruntime"))
+    # the approximation is within ~1e-7 of the function: the tables agree almost everywhere
+    a = build_table("tanh", 0.03, 0, 1 / 128, 0)
+    b = build_table("tanh", 0.03, 0, 1 / 128, 0, precision="onnxruntime")
+    assert np.count_nonzero(a != b) <= 1

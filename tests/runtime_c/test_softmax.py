@@ -170,3 +170,68 @@ def test_against_onnxruntime(kind, dtype):
         equal, total = equal + int((got == expect.astype(np.int64) - off).sum()), total + got.size
     # QLinearSoftmax is onnxruntime's own approximation; the float graph should agree closely.
     assert total - equal <= (total // 10000 if kind == "qdq" else total // 100)
+
+
+# -- --tables onnxruntime: onnxruntime's QLinearSoftmax rule in float32 ----------------------
+
+SOFTMAX_FLOAT_CDEF = """
+typedef struct {
+    int32_t rows, len;
+    const float *exp_table;
+    float out_mult;
+    int32_t out_zp, act_min, act_max;
+} tg_softmax_float_params_t;
+void tg_softmax_float(const tg_softmax_float_params_t *p, const int8_t *x, int8_t *y);
+"""
+
+
+def run_c_softmax_float(p, x: np.ndarray) -> np.ndarray:
+    ffi, lib = kernel_lib(["tg_softmax.c"], SOFTMAX_FLOAT_CDEF)
+    m = Marshal(ffi)
+    params = m.struct("tg_softmax_float_params_t", rows=p.rows, len=p.len,
+                      exp_table=m.array(p.exp_table, np.float32, "float"),
+                      out_mult=p.out_mult, out_zp=p.out_zp, act_min=p.act_min,
+                      act_max=p.act_max)
+    y, y_ptr = m.output((p.rows, p.len), np.int8)
+    lib.tg_softmax_float(params, m.array(x, np.int8, "int8_t"), ffi.cast("int8_t *", y_ptr))
+    return y
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_float_rule_c_matches_reference(seed):
+    from tinygen.reference.softmax import make_softmax_float_params, softmax_float
+    rng = np.random.default_rng(100 + seed)
+    x, s_x, _, s_y, z_y = random_case(rng, seed)
+    act = (-128, 127) if seed % 3 else (-100, 50)
+    if np.floor(1 / np.float32(s_y)) > 148 * x.shape[1]:  # refused: see the next test
+        s_y = 1 / 64
+    p = make_softmax_float_params(x.shape[0], x.shape[1], s_x, s_y, z_y, *act)
+    np.testing.assert_array_equal(run_c_softmax_float(p, x), softmax_float(p, x))
+
+
+@pytest.mark.parametrize("dtype", [np.int8, np.uint8])
+def test_float_rule_reproduces_qlinearsoftmax(dtype):
+    # Source: onnxruntime's QLinearSoftmax (com.microsoft, CPU provider), the kernel it fuses
+    # DequantizeLinear -> Softmax -> QuantizeLinear into. --tables onnxruntime promises every
+    # output equal, ties and the s_y = 1/255 case (floor(1/s_y) = 254) included.
+    from tinygen.reference.softmax import make_softmax_float_params, softmax_float
+    rng = np.random.default_rng(5 + (dtype == np.uint8))
+    off = 0 if dtype == np.int8 else 128
+    total = 0
+    for trial in range(60):
+        x, s_x, z_x, s_y, z_y = random_case(rng, trial)
+        if trial % 4 == 1:
+            s_y, z_y = 1 / 255, -128
+        try:
+            p = make_softmax_float_params(x.shape[0], x.shape[1], s_x, s_y, z_y)
+        except ValueError as exc:  # the exp * floor(1/s_y) product overflows float32 there
+            assert "overflows" in str(exc) and np.floor(1 / np.float32(s_y)) > 148 * x.shape[1]
+            continue
+        model = softmax_model("qlinear", dtype, list(x.shape), s_x, z_x + off, s_y, z_y + off)
+        sess = ort.InferenceSession(model.SerializeToString(),
+                                    providers=["CPUExecutionProvider"])
+        expect = sess.run(None, {"x": (x.astype(np.int64) + off).astype(dtype)})[0]
+        got = softmax_float(p, x).astype(np.int64)
+        np.testing.assert_array_equal(got, expect.astype(np.int64) - off)
+        total += got.size
+    assert total > 10_000

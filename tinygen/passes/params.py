@@ -112,12 +112,13 @@ class LutParams:
     count: int
 
 
-def _lut(graph: Graph, op: Op, mode: str) -> KernelCall:
+def _lut(graph: Graph, op: Op, mode: str, tables: str = "onnx") -> KernelCall:
     from tinygen.reference.lut import build_table
     t = graph.tensors
     x, y = t[op.inputs[0]], t[op.outputs[0]]
     table = build_table(op.attrs["fn"], x.quant.scalar_scale(), x.quant.scalar_zp(),
                         y.quant.scalar_scale(), y.quant.scalar_zp(),
+                        precision="onnxruntime" if tables == "onnxruntime" else None,
                         **op.attrs.get("fn_args", {}))
     return KernelCall("tg_lut", "lut", LutParams(table, x.size), [x.name, y.name])
 
@@ -159,7 +160,19 @@ def _pad(graph: Graph, op: Op, mode: str) -> KernelCall:
     return KernelCall("tg_pad", "shape", p, [x.name, y.name])
 
 
-def _pool(graph: Graph, op: Op, mode: str) -> KernelCall:
+def _runtime_dtype(op: Op, y: Tensor, tables: str) -> str:
+    """The 8-bit type onnxruntime's integer kernel computes this op in: the model's own,
+    except that onnxruntime on x86-64 rewrites an int8 QDQ graph's activations to uint8
+    (zero points + 128) before it fuses them, and its QLinearAveragePool adds the zero point
+    before rounding, so the rewrite moves near-tie roundings (measured on gesture_band: 20 of
+    1,580 outputs). Followed with --tables onnxruntime only (average pooling)."""
+    src = y.quant.src_dtype
+    if tables == "onnxruntime" and src == "int8" and not op.onnx_op.startswith("QLinear"):
+        return "uint8"
+    return src
+
+
+def _pool(graph: Graph, op: Op, mode: str, tables: str = "onnx") -> KernelCall:
     from tinygen.reference.pool import PoolParams, make_avgpool_params
     t = graph.tensors
     x, y = t[op.inputs[0]], t[op.outputs[0]]
@@ -179,7 +192,7 @@ def _pool(graph: Graph, op: Op, mode: str) -> KernelCall:
                             y.quant.scalar_scale(), y.quant.scalar_zp(),
                             bool(op.attrs.get("count_include_pad", 0)), mode,
                             op.attrs.get("float_order", "qlinear"),
-                            y.quant.src_dtype, lo, hi)
+                            _runtime_dtype(op, y, tables), lo, hi)
     return KernelCall("tg_avgpool", "pool", p, [x.name, y.name])
 
 
@@ -205,11 +218,18 @@ def _eltwise(graph: Graph, op: Op, mode: str) -> KernelCall:
                       [a.name, b.name, y.name])
 
 
-def _softmax(graph: Graph, op: Op, mode: str) -> KernelCall:
-    from tinygen.reference.softmax import make_softmax_params
+def _softmax(graph: Graph, op: Op, mode: str, tables: str = "onnx") -> KernelCall:
+    from tinygen.reference.softmax import make_softmax_float_params, make_softmax_params
     t = graph.tensors
     x, y = t[op.inputs[0]], t[op.outputs[0]]
     length = x.storage_shape()[-1]
+    if tables == "onnxruntime":  # onnxruntime's QLinearSoftmax, in float32
+        if mode != "float":
+            raise ValueError("--tables onnxruntime computes Softmax in float32 as onnxruntime "
+                             "does; it needs --requant float")
+        p = make_softmax_float_params(x.size // length, length, x.quant.scalar_scale(),
+                                      y.quant.scalar_scale(), y.quant.scalar_zp())
+        return KernelCall("tg_softmax_float", "softmax", p, [x.name, y.name])
     p = make_softmax_params(x.size // length, length, x.quant.scalar_scale(),
                             y.quant.scalar_scale(), y.quant.scalar_zp())
     return KernelCall("tg_softmax", "softmax", p, [x.name, y.name])
@@ -220,18 +240,26 @@ LOWERINGS = {"conv": _conv, "fc": _fc, "add": _eltwise, "mul": _eltwise, "maxpoo
              "transpose": _transpose, "pad": _pad}
 
 
-def lower_params(graph: Graph, mode: str) -> Graph:
+# Ops that follow --tables (onnx: the ONNX definition; onnxruntime: its own approximations,
+# reference/lut.py and reference/softmax.py, and the type its kernels compute in).
+TABLE_OPS = ("lut", "softmax", "avgpool")
+
+
+def lower_params(graph: Graph, mode: str, tables: str = "onnx") -> Graph:
     """Attach a KernelCall to every op that runs a kernel ('view' ops run nothing).
 
     Needs: assign_layout. Leaves: op.attrs["call"] on every non-view op.
     """
     if mode not in ("fixed", "float"):
         raise TinygenError(f"--requant must be fixed or float, not '{mode}'")
+    if tables not in ("onnx", "onnxruntime"):
+        raise TinygenError(f"--tables must be onnx or onnxruntime, not '{tables}'")
     for op in graph.ops:
         if op.kind in ("view", "copy"):
             continue
+        extra = {"tables": tables} if op.kind in TABLE_OPS else {}
         try:
-            op.attrs["call"] = LOWERINGS[op.kind](graph, op, mode)
+            op.attrs["call"] = LOWERINGS[op.kind](graph, op, mode, **extra)
         except ValueError as exc:  # e.g. a multiplier out of range
             raise TinygenError(str(exc), file=graph.source_path, node=op.name,
                                op=op.onnx_op) from None

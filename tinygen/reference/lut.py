@@ -17,6 +17,17 @@ correctly rounded value, and no runtime agrees with another there anyway).
 
 "tabulated" takes f as 256 float32 values, one per table index, computed elsewhere (the
 frontend evaluates a whole float subgraph that way); only the QuantizeLinear step is done here.
+
+A third precision, "onnxruntime" (`--tables onnxruntime`), exists for sigmoid and tanh only: the
+dequantized input in float32, then the rational approximation onnxruntime's CPU provider
+evaluates on x86-64 (odd polynomial over even polynomial in x^2, each step a float32 fused
+multiply-add, the input clamped to +-18 for sigmoid and +-9 for tanh, sigmoid as 0.5 + p/q
+clamped to [0, 1]), then QuantizeLinear in float32. Coefficients from memory of that library's
+published source, confirmed by measurement: tests/runtime_c/test_lut.py feeds all 256 inputs of
+random scales through onnxruntime 1.32 (QLinearSigmoid, and DequantizeLinear -> Sigmoid/Tanh ->
+QuantizeLinear) and requires every entry equal. The approximation is within ~1e-7 of the
+function, so these tables differ from the float64 ones only where a value sits that close to a
+rounding boundary (1 entry in ~400,000 measured).
 """
 from __future__ import annotations
 
@@ -33,6 +44,8 @@ LUT_FUNCTIONS = ("identity", "relu", "clip", "sigmoid", "tanh", "hard_sigmoid", 
                  "leaky_relu")
 DEFAULT_PRECISION = {"sigmoid": "float64", "tanh": "float64"}  # all others: float32
 TABULATED = "tabulated"  # f given as its 256 values (args: values)
+
+ORT_APPROXIMATED = ("sigmoid", "tanh")  # what precision "onnxruntime" changes
 
 
 def lut(table: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -88,6 +101,65 @@ def _function(name: str, args: dict) -> Callable[[np.ndarray], np.ndarray]:
     raise ValueError(f"no table builder for {name!r} (known: {', '.join(LUT_FUNCTIONS)})")
 
 
+# The rational approximations (see the module docstring): clamp range, then the numerator's
+# coefficients from the highest power of x^2 down, then the denominator's.
+ORT_SIGMOID = ((-18.0, 18.0), (4.37031012579801e-11, 1.15627324459942e-07,
+                               6.08574864600143e-05, 8.51377133304701e-03,
+                               2.48287947061529e-01),
+               (6.10247389755681e-13, 5.76102136993427e-09, 6.29106785017040e-06,
+                1.70198817374094e-03, 1.16817656904453e-01, 9.93151921023180e-01))
+ORT_TANH = ((-9.0, 9.0), (-2.76076847742355e-16, 2.00018790482477e-13, -8.60467152213735e-11,
+                          5.12229709037114e-08, 1.48572235717979e-05, 6.37261928875436e-04,
+                          4.89352455891786e-03),
+            (1.19825839466702e-06, 1.18534705686654e-04, 2.26843463243900e-03,
+             4.89352518554385e-03))
+
+
+def _fma32(a: np.ndarray, b: np.ndarray, c: np.ndarray) -> np.ndarray:
+    """float32 a*b + c with one rounding (a hardware fused multiply-add), elementwise.
+
+    a*b of two float32 is exact in float64; the float64 sum s and its exact error (TwoSum)
+    give a + b*c exactly as s + err. float32(s) is the correct rounding unless s sits exactly
+    halfway between two float32 values, where the sign of err decides.
+    """
+    p = a.astype(np.float64) * b.astype(np.float64)
+    c64 = c.astype(np.float64)
+    s = p + c64
+    bp = s - c64
+    err = (p - bp) + (c64 - (s - bp))
+    r = s.astype(np.float32)
+    up = r.astype(np.float64) > s
+    lo = np.where(up, np.nextafter(r, np.float32(-np.inf)), r)
+    hi = np.where(up, r, np.nextafter(r, np.float32(np.inf)))
+    mid = (lo.astype(np.float64) + hi.astype(np.float64)) / 2
+    tie = (s == mid) & (err != 0)
+    return np.where(tie, np.where(err > 0, hi, lo), r).astype(np.float32)
+
+
+def _rational32(x: np.ndarray, consts) -> np.ndarray:
+    """p(x)/q(x) in float32 as the approximation evaluates it (fused multiply-adds)."""
+    (lo, hi), num, den = consts
+    x = np.clip(np.asarray(x, np.float32), np.float32(lo), np.float32(hi))
+    x2 = x * x
+    p = np.full_like(x, np.float32(num[0]))
+    for coef in num[1:]:
+        p = _fma32(p, x2, np.full_like(x, np.float32(coef)))
+    p = p * x
+    q = np.full_like(x, np.float32(den[0]))
+    for coef in den[1:]:
+        q = _fma32(q, x2, np.full_like(x, np.float32(coef)))
+    return (p / q).astype(np.float32)
+
+
+def _ort_function(name: str) -> Callable[[np.ndarray], np.ndarray]:
+    if name == "sigmoid":
+        return lambda x: np.clip(_rational32(x, ORT_SIGMOID) + np.float32(0.5),
+                                 np.float32(0), np.float32(1))
+    if name == "tanh":
+        return lambda x: _rational32(x, ORT_TANH)
+    raise ValueError(f"no onnxruntime approximation for {name!r} (only sigmoid and tanh)")
+
+
 def _check_quant(s_in: float, s_out: float) -> None:
     for what, s in (("input", s_in), ("output", s_out)):
         if not (np.isfinite(s) and s > 0):
@@ -106,10 +178,13 @@ def build_table(name: str, s_in: float, z_in: int, s_out: float, z_out: int,
     """
     _check_quant(s_in, s_out)
     precision = precision or DEFAULT_PRECISION.get(name, "float32")
-    if precision not in ("float32", "float64"):
-        raise ValueError(f"precision must be 'float32' or 'float64', not {precision!r}")
-    fn = _function(name, args)
-    ft = np.float32 if precision == "float32" else np.float64
+    if precision == "onnxruntime" and name not in ORT_APPROXIMATED:
+        precision = "float32"  # its piecewise-linear ops are the float32 formulas themselves
+    if precision not in ("float32", "float64", "onnxruntime"):
+        raise ValueError(f"precision must be 'float32', 'float64' or 'onnxruntime', not "
+                         f"{precision!r}")
+    fn = _ort_function(name) if precision == "onnxruntime" else _function(name, args)
+    ft = np.float64 if precision == "float64" else np.float32
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         x = (INDEX_Q.astype(ft) - ft(z_in)) * ft(s_in)
         v = np.asarray(fn(x), dtype=ft) / ft(s_out)
