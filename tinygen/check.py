@@ -6,7 +6,7 @@ model's boundary QuantizeLinear does, then fed to both the C and the reference.
 from __future__ import annotations
 
 import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -31,6 +31,9 @@ class CheckResult:
     mismatched_elements: int
     total_elements: int
     onnxruntime: dict | None
+    # per sample, the C's outputs in ONNX layout and type (and onnxruntime's, when it ran)
+    outputs: list[list[np.ndarray]] = field(default_factory=list, repr=False)
+    ort_outputs: list[list[np.ndarray]] | None = field(default=None, repr=False)
 
     def as_json(self) -> dict:
         return {"samples": self.samples, "bit_exact": self.bit_exact,
@@ -55,6 +58,22 @@ def random_inputs(graph: Graph, n: int, seed: int = 0) -> list[list[np.ndarray]]
                 one.append(rng.integers(lo, hi + 1, size=t.shape).astype(np.float32))
         samples.append(one)
     return samples
+
+
+def load_labels(path: str, count: int) -> np.ndarray | None:
+    """The optional 'labels' array of an --inputs file: (N,) class indices, or None."""
+    try:
+        with np.load(path) as z:
+            if "labels" not in z:
+                return None
+            labels = np.asarray(z["labels"])
+    except (OSError, ValueError) as exc:
+        raise TinygenError(f"cannot read labels: {exc}", file=path) from None
+    if labels.dtype.kind not in "iu" or labels.ndim != 1 or labels.shape[0] != count or \
+            (labels.size and labels.min() < 0):
+        raise TinygenError(f"'labels' must be {count} non-negative integers (one class per "
+                           f"input), not {labels.dtype.name} {list(labels.shape)}", file=path)
+    return labels.astype(np.int64)
 
 
 def load_inputs(graph: Graph, path: str) -> list[list[np.ndarray]]:
@@ -132,9 +151,11 @@ def run_check(c: Compiled, model_path: str, samples: list[list[np.ndarray]], fla
                 diff = (r != y.reshape(-1).astype(r.dtype)) | (y.reshape(-1) != y2.reshape(-1))
                 mismatched += int(diff.sum())
                 total += r.size
-            ours_all.append(logical_outputs(g, ref))
-    ort = compare_onnxruntime(g, model_path, samples, ours_all) if against_ort else None
-    return CheckResult(len(samples), mismatched == 0, mismatched, total, ort)
+            ours_all.append(logical_outputs(g, got))  # the C's own outputs
+    ort, theirs = compare_onnxruntime(g, model_path, samples, ours_all, keep=True) \
+        if against_ort else (None, None)
+    return CheckResult(len(samples), mismatched == 0, mismatched, total, ort, ours_all,
+                       theirs)
 
 
 def onnxruntime_session(path: str, shown_as: str, optimized_to: str | None = None,
@@ -159,12 +180,14 @@ def onnxruntime_session(path: str, shown_as: str, optimized_to: str | None = Non
                            f"{first}", file=shown_as) from None
 
 
-def compare_onnxruntime(g: Graph, model_path: str, samples, ours_all) -> dict:
+def compare_onnxruntime(g: Graph, model_path: str, samples, ours_all, keep: bool = False):
     """Run onnxruntime (default graph optimisations) on the same float inputs; distance in
-    output LSBs: the onnxruntime output is mapped back to integers with the output's scale."""
+    output LSBs: the onnxruntime output is mapped back to integers with the output's scale.
+    Returns the distance dict, and with keep=True (dict, onnxruntime's outputs per sample)."""
     sess = onnxruntime_session(model_path, model_path)
     names = [i.name for i in sess.get_inputs()]
     max_diff, equal, count = 0, 0, 0
+    kept = []
     for floats, ours in zip(samples, ours_all, strict=True):
         feeds = {}
         for io, x in zip(g.inputs, floats, strict=True):
@@ -172,6 +195,7 @@ def compare_onnxruntime(g: Graph, model_path: str, samples, ours_all) -> dict:
             feeds[io.onnx_name] = np.asarray(x).astype(dt)
         feeds = {k: v for k, v in feeds.items() if k in names}
         theirs = sess.run([io.onnx_name for io in g.outputs], feeds)
+        kept.append(theirs)
         for io, y_ours, y_ort in zip(g.outputs, ours, theirs, strict=True):
             if io.onnx_dtype == "float32":
                 zp = io.quant.scalar_zp() + (128 if io.buffer_dtype == "uint8" else 0)
@@ -183,7 +207,8 @@ def compare_onnxruntime(g: Graph, model_path: str, samples, ours_all) -> dict:
             max_diff = max(max_diff, int(d.max()) if d.size else 0)
             equal += int((d == 0).sum())
             count += d.size
-    return {"max_abs_diff": max_diff, "equal_fraction": equal / count if count else 1.0}
+    dist = {"max_abs_diff": max_diff, "equal_fraction": equal / count if count else 1.0}
+    return (dist, kept) if keep else dist
 
 
 __all__ = ["run_check", "random_inputs", "load_inputs", "dequantize_outputs", "CheckResult"]

@@ -120,6 +120,8 @@ def make_parser() -> argparse.ArgumentParser:
                    help="build with AddressSanitizer and UBSan")
     c.add_argument("--trace", action="store_true",
                    help="compare every op's output and name the first op that differs")
+    c.add_argument("--float-model", metavar="FILE.onnx",
+                   help="the model before quantization: per-layer SQNR and float accuracy")
     add_build_flags(c)
     pl = sub.add_parser("plan", help="show the arena plan")
     pl.add_argument("model")
@@ -201,10 +203,14 @@ def cmd_check(args) -> int:
         traces = trace_host(c, samples, flags_text(args), args.model,
                             args.against_onnxruntime)
     traced_ok = all(t.equal for t in traces if t.against == "reference")
+    qerr, qerr_note = insight_quant_error(c, args, samples)
+    acc = insight_accuracy(c, args, samples, res, qerr)
     if args.json:
         info = res.as_json()
         if args.trace:
             info["trace"] = {t.against: t.as_json() for t in traces}
+        info["quantization_error"] = qerr.as_json() if qerr else None
+        info["accuracy"] = acc.as_json() if acc else None
         print(json.dumps(info))
     else:
         verdict = "bit-exact" if res.bit_exact else \
@@ -218,7 +224,49 @@ def cmd_check(args) -> int:
                  f"{100 * o['equal_fraction']:.2f}% of elements equal")
         for t in traces:
             _say("\n".join(t.lines()))
+        if qerr is not None:
+            _say("\n".join(qerr.lines()))
+        elif qerr_note:
+            _say(qerr_note)
+        if acc is not None:
+            _say("\n".join(acc.lines()))
     return 0 if res.bit_exact and traced_ok else 1
+
+
+def insight_quant_error(c, args, samples):
+    """Per-layer SQNR: against --float-model, or, for a QDQ model, the float graph recovered
+    from it. Returns (QuantError or None, a note saying why there is none)."""
+    from tinygen.layer_error import float_reference, quantization_error
+    float_model = getattr(args, "float_model", None)
+    try:
+        ref = float_reference(c, args.model, float_model)
+    except TinygenError as exc:
+        if float_model:
+            raise
+        return None, f"note: {exc.reason}"
+    return quantization_error(c, ref, samples), ""
+
+
+def insight_accuracy(c, args, samples, res, qerr):
+    """Top-1 accuracy when the --inputs file has labels (None otherwise)."""
+    from tinygen.accuracy import check_labels, onnxruntime_outputs, score
+    from tinygen.check import load_labels
+    if not getattr(args, "inputs", None):
+        return None
+    labels = load_labels(args.inputs, len(samples))
+    if labels is None:
+        return None
+    classes = check_labels(c.graph, labels, args.inputs)
+    notes = []
+    ort = res.ort_outputs
+    if ort is None:
+        try:
+            ort = onnxruntime_outputs(c.graph, args.model, samples)
+        except TinygenError as exc:
+            notes.append(f"onnxruntime not scored: {exc.reason}")
+    floats = qerr.float_outputs if qerr is not None else None
+    return score(labels, classes, res.outputs, ort, floats,
+                 qerr.source if qerr is not None else None, notes)
 
 
 def cmd_plan(args) -> int:

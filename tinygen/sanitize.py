@@ -291,7 +291,7 @@ def run_sanitized(c: Compiled, model_path: str, samples: list[list[np.ndarray]],
         raw = (work / "outputs.bin").read_bytes() if (work / "outputs.bin").exists() else b""
     total = sum(n for n, _ in specs) * len(samples)
     if proc.returncode != 0 or len(raw) != 2 * per_run * len(samples):
-        return SanitizedResult(len(samples), False, total, total, None,
+        return SanitizedResult(len(samples), False, total, total, None, problem=
                                summarize_report(c, proc.stderr, proc.returncode))
     mismatched, ours_all, pos = 0, [], 0
     for st in storage:
@@ -310,7 +310,8 @@ def run_sanitized(c: Compiled, model_path: str, samples: list[list[np.ndarray]],
             mismatched += int(diff.sum())
         ours_all.append(logical_outputs(g, ref))
     ort = compare_onnxruntime(g, model_path, samples, ours_all) if against_ort else None
-    return SanitizedResult(len(samples), mismatched == 0, mismatched, total, ort, None)
+    return SanitizedResult(len(samples), mismatched == 0, mismatched, total, ort,
+                           outputs=ours_all, problem=None)
 
 
 __all__ = ["run_sanitized", "build_sanitized", "driver_source", "SanitizedResult"]
