@@ -139,6 +139,14 @@ def make_parser() -> argparse.ArgumentParser:
     r.add_argument("-o", "--output", required=True, metavar="REPORT.html")
     r.add_argument("--budget-ram", type=parse_size, metavar="SIZE")
     r.add_argument("--budget-flash", type=parse_size, metavar="SIZE")
+    r.add_argument("--cpu", choices=["cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33"],
+                   help="add emulated instructions per layer and the stack")
+    rsrc = r.add_mutually_exclusive_group()
+    rsrc.add_argument("--inputs", metavar="FILE.npz",
+                      help="inputs for SQNR (and accuracy, with labels)")
+    rsrc.add_argument("--samples", type=int, default=20, metavar="N")
+    r.add_argument("--float-model", metavar="FILE.onnx",
+                   help="the model before quantization: per-layer SQNR")
     add_build_flags(r)
     return p
 
@@ -302,10 +310,19 @@ def cmd_emulate(args) -> int:
 
 
 def cmd_report(args) -> int:
+    from tinygen.check import load_inputs, random_inputs
     from tinygen.compiler import compile_model, summary
-    from tinygen.report.html import write_report
+    from tinygen.report.html import measure_layers, write_report
     c = compile_model(args.model, build_options(args))
-    write_report(c, args.output, args.budget_ram, args.budget_flash, flags_text(args))
+    if args.inputs:
+        samples = load_inputs(c.graph, args.inputs)
+    else:
+        if args.samples < 1:
+            raise TinygenError("--samples must be >= 1")
+        samples = random_inputs(c.graph, args.samples)
+    layers = measure_layers(c, args.model, flags_text(args), samples, args.cpu,
+                            args.float_model, args.inputs)
+    write_report(c, args.output, args.budget_ram, args.budget_flash, flags_text(args), layers)
     if args.json:
         print(json.dumps(dict(summary(c), report=args.output, const_bytes=c.const_bytes)))
     else:

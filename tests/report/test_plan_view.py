@@ -12,6 +12,7 @@ from tinygen import cli
 from tinygen.compiler import BuildOptions, Compiled, compile_model, plan_arena, summary
 from tinygen.ir import Graph, IOInfo, Op, Tensor
 from tinygen.report.plan_view import (
+    MIN_BUFFER_PX,
     buffer_rows,
     compare_planners,
     live_profile,
@@ -52,7 +53,10 @@ def check_svg_against_plan(c) -> None:
     rects = [r for r in root.iter(f"{SVG}rect") if r.get("class") == "buf"]
     rows = buffer_rows(c)
     assert len(rects) == len(rows) == len(arena_buffers(c))
-    # each rectangle's title names its buffer; heights follow sizes, widths lifetimes
+    # each rectangle's title names its buffer (drawn largest first, so small ones stay on
+    # top); heights follow sizes with a visible minimum, widths lifetimes
+    by_id = {r.find(f"{SVG}title").text.split(" ", 1)[0]: r for r in rects}
+    rects = [by_id[row.ident] for row in rows]
     for rect, row in zip(rects, rows, strict=True):
         assert rect.find(f"{SVG}title").text.startswith(f"{row.ident} {printable(row.buf.name)}")
     big = max(zip(rects, rows, strict=True), key=lambda p: p[1].buf.size)
@@ -60,7 +64,7 @@ def check_svg_against_plan(c) -> None:
     px_per_step = (float(big[0].get("width")) + 2) / (big[1].buf.last - big[1].buf.first + 1)
     for rect, row in zip(rects, rows, strict=True):
         b = row.buf
-        assert abs(float(rect.get("height")) - max(b.size * px_per_byte, 1.0)) < 0.2
+        assert abs(float(rect.get("height")) - max(b.size * px_per_byte, MIN_BUFFER_PX)) < 0.2
         assert abs(float(rect.get("width")) + 2 - (b.last - b.first + 1) * px_per_step) < 0.2
 
 

@@ -174,10 +174,13 @@ class TreeWriter:
             if op.kind == "view":
                 continue
             where = c_comment_text(f"{op.onnx_op} '{op.name}'", 100)
+            before = self.pw.const_bytes
+            lines = self.op_lines(k, len(calls))
             calls.append({"index": len(calls), "op_index": k,
                           "comment": f"{op.attrs['call'].func if 'call' in op.attrs else op.kind}"
                                      f" <- {where}",
-                          "lines": self.op_lines(k, len(calls))})
+                          "lines": lines,
+                          "const_bytes": self.pw.const_bytes - before})  # this call's flash
         pro, epi = self.flips(g.inputs, "input"), self.flips(g.outputs, "output")
         if c.options.io == "external":
             # restore the caller's uint8 inputs (they were shifted in place)

@@ -14,6 +14,7 @@ from pathlib import Path
 import tinygen
 from tinygen.errors import TinygenError
 from tinygen.report.plan_view import (
+    MIN_BUFFER_PX,
     buffer_rows,
     compare_planners,
     kernel_of,
@@ -25,15 +26,17 @@ from tinygen.report.plan_view import (
 
 CSS = """
 body { font-family: "DejaVu Sans", Arial, Helvetica, sans-serif; margin: 24px auto;
-       max-width: 1100px; color: #1b1b1b; padding: 0 16px; }
+       max-width: 1400px; color: #1b1b1b; padding: 0 16px; }
 h1 { font-size: 22px; margin-bottom: 4px; }
 h2 { font-size: 17px; margin-top: 28px; border-bottom: 1px solid #ccc; padding-bottom: 3px; }
 table { border-collapse: collapse; font-size: 13px; margin: 6px 0; }
 th, td { border: 1px solid #d0d0d0; padding: 3px 8px; text-align: left; vertical-align: top; }
 th { background: #f0f0f0; }
 td.n { text-align: right; font-variant-numeric: tabular-nums; font-family: monospace; }
-td.name { font-family: monospace; word-break: break-all; max-width: 420px; }
+td.name { font-family: monospace; overflow-wrap: anywhere; min-width: 13em; max-width: 420px; }
 tr.this td { background: #eef5ff; }
+td.top { background: #ffe3b3; font-weight: bold; text-align: right;
+         font-variant-numeric: tabular-nums; font-family: monospace; }
 .verdict { padding: 7px 12px; margin: 6px 0; border-radius: 4px; font-weight: bold; }
 .fits { background: #e3f4e1; border: 1px solid #5a9e52; }
 .nofit { background: #fbe3e1; border: 1px solid #c0392b; }
@@ -157,26 +160,205 @@ def _budget_section(c, vs: list[Verdict], flags: str) -> str:
     return "<h2>Budgets</h2>\n" + "\n".join(lines) + "\n" + table + "\n" + note
 
 
-def _ops_section(c) -> str:
+@dataclass
+class LayerFigures:
+    """What the report shows per layer beyond the plan, when it was measured: the target
+    cost (`--cpu`: instructions per kernel call, stack), the quantization error (SQNR per
+    call) and the accuracy on labelled inputs. Keys are kernel-call indices."""
+
+    cpu: str | None = None
+    instructions: dict[int, int] | None = None
+    stack_bytes: int | None = None
+    target_flash_bytes: int | None = None
+    quant: object | None = None      # tinygen.layer_error.QuantError
+    accuracy: object | None = None   # tinygen.accuracy.Accuracy
+    notes: list[str] | None = None
+
+
+def stored_shape(t) -> str:
+    """The storage shape as the C holds it, with axis letters for channels-last tensors."""
+    dims = "x".join(map(str, t.storage_shape()))
+    if t.layout == "channels_last" and len(t.shape) in (3, 4):
+        return dims + (" (N W C)" if len(t.shape) == 3 else " (N H W C)")
+    return dims
+
+
+def per_call_flash(c, flags: str) -> list[int]:
+    """Flash constants each kernel call adds to the emitted C (weights, biases, tables,
+    parameters; a constant two calls share counts for the first)."""
+    from tinygen.codegen.emit import TreeWriter
+    try:
+        return [call["const_bytes"] for call in TreeWriter(c, flags).context()["calls"]]
+    except TinygenError:
+        return []
+
+
+def _top(values: dict[int, float], largest: bool = True) -> int | None:
+    rated = {k: v for k, v in values.items() if v is not None}
+    if not rated:
+        return None
+    return (max if largest else min)(rated, key=lambda k: rated[k])
+
+
+def _hi(cell: str, on: bool) -> str:
+    """A number cell shaded as the biggest of its column."""
+    return cell.replace('<td class="n">', '<td class="top">', 1) if on else cell
+
+
+def measure_layers(c, model_path: str, flags: str, samples, cpu: str | None = None,
+                   float_model: str | None = None, inputs_path: str | None = None
+                   ) -> LayerFigures:
+    """Run what the per-layer columns need: the emulated core (cpu), the float reference
+    (float_model, or a QDQ model's recovered float graph) and labelled accuracy."""
+    from tinygen.accuracy import check_labels, onnxruntime_outputs, score
+    from tinygen.check import load_labels, run_check
+    from tinygen.layer_error import float_reference, quantization_error
+    lf = LayerFigures(notes=[])
+    if cpu is not None:
+        from tinygen.target_check import emulate_compiled
+        fig = emulate_compiled(c, samples[:2], cpu, flags)
+        lf.cpu = cpu
+        lf.instructions = {int(r["op"]): int(r["instructions"]) for r in fig["per_op"]}
+        lf.stack_bytes, lf.target_flash_bytes = fig["stack_bytes"], fig["flash_bytes"]
+        if not fig["bit_exact"]:
+            lf.notes.append(f"the {cpu} build's outputs differ from the reference")
+    try:
+        ref = float_reference(c, model_path, float_model)
+        lf.quant = quantization_error(c, ref, samples)
+    except TinygenError as exc:
+        if float_model:
+            raise
+        lf.notes.append(exc.reason)
+    labels = load_labels(inputs_path, len(samples)) if inputs_path else None
+    if labels is not None:
+        classes = check_labels(c.graph, labels, inputs_path)
+        res = run_check(c, model_path, samples, flags, against_ort=False)
+        try:
+            ort = onnxruntime_outputs(c.graph, model_path, samples)
+        except TinygenError as exc:
+            ort = None
+            lf.notes.append(f"onnxruntime not scored: {exc.reason}")
+        floats = lf.quant.float_outputs if lf.quant is not None else None
+        lf.accuracy = score(labels, classes, res.outputs, ort, floats,
+                            lf.quant.source if lf.quant is not None else None)
+    return lf
+
+
+def _ops_section(c, flags: str = "", lf: LayerFigures | None = None) -> str:
+    import math
     g, plan = c.graph, c.plan
+    lf = lf or LayerFigures()
     n = len(plan.order)
     ids = {r.buf.name: r.ident for r in buffer_rows(c)}
     live = {r.step: r.live_bytes for r in live_profile(c)}
-    rows = []
+    flash = per_call_flash(c, flags)
+    sq = {lay.call: lay for lay in lf.quant.layers} if lf.quant is not None else {}
+    steps, call_of = [], {}
     for s, k in enumerate(plan.order):
+        if g.ops[k].kind != "view":
+            call_of[s] = len(call_of)
+        steps.append((s, k))
+    instr = lf.instructions or {}
+    # the biggest of each: memory (live bytes), flash, time (instructions), accuracy (drop)
+    top_live = _top({s: live[s] for s, _ in steps})
+    top_flash = _top({s: flash[call_of[s]] for s, _ in steps if s in call_of
+                      and call_of[s] < len(flash)})
+    top_time = _top({s: instr.get(call_of[s]) for s, _ in steps if s in call_of})
+    drops = {s: sq[call_of[s]].drop_db for s, _ in steps if s in call_of and call_of[s] in sq}
+    top_drop = _top({s: (1e9 if v is not None and math.isinf(v) else v)
+                     for s, v in drops.items()})
+    head = ["step", "op", "kernel", "ONNX node", "ONNX op", "stored as", "MACs", "output B",
+            "buffer", "live B", "flash B"]
+    if lf.instructions is not None:
+        head += ["instructions", "instr/MAC"]
+    if lf.quant is not None:
+        head += ["SQNR dB", "drop dB"]
+    rows = []
+    for s, k in steps:
         op = g.ops[k]
         out = g.tensors[op.outputs[0]]
         buf = plan.buffers[plan.owner[op.outputs[0]]]
         where = ids.get(buf.name, buf.external or "-")
-        kern = kernel_of(op) + (f" (alias of {where})" if op.kind == "view" else "")
-        shape = "x".join(map(str, out.shape)) + (f" {out.layout}" if out.layout != "plain"
-                                                 else "")
-        rows.append([_n(step_label(s, n)), _n(k), _s(kern), _name(op.name), _s(op.onnx_op),
-                     _s(shape), _n(c.per_op_macs[k]), _n(out.nbytes), _s(where),
-                     _n(live[s])])
-    return "<h2>Ops in execution order</h2>\n" + _table(
-        ["step", "op", "kernel", "ONNX node", "ONNX op", "output shape", "MACs", "output B",
-         "buffer", "live B"], rows)
+        if op.kind == "view":
+            same = " with its input's scale" if op.onnx_op == "QuantizeLinear" else ""
+            kern = f"no code: same bytes as {where}{same}"
+        else:
+            kern = kernel_of(op)
+        call = call_of.get(s)
+        row = [_n(step_label(s, n)), _n(k), _s(kern), _name(op.name), _s(op.onnx_op),
+               _s(stored_shape(out)), _n(c.per_op_macs[k]), _n(out.nbytes), _s(where),
+               _hi(_n(live[s]), s == top_live),
+               _hi(_n(flash[call] if call is not None and call < len(flash) else None),
+                   s == top_flash)]
+        if lf.instructions is not None:
+            ins = instr.get(call) if call is not None else None
+            macs = c.per_op_macs[k]
+            row += [_hi(_n(ins), s == top_time),
+                    _n(f"{ins / macs:.2f}" if ins is not None and macs else None)]
+        if lf.quant is not None:
+            lay = sq.get(call) if call is not None else None
+            fmt = _db_text
+            row += [_n(fmt(lay.sqnr_db) if lay else None),
+                    _hi(_n(fmt(lay.drop_db) if lay else None), s == top_drop)]
+        rows.append(row)
+    legend = ("Shaded: the biggest of each column - live bytes (memory), flash B (constants "
+              "of that call), instructions (time on the emulated core) and the SQNR drop "
+              "(where accuracy is lost most: the call's SQNR below its inputs'). Stored as: the "
+              "output's dimensions in the order the C stores them.")
+    return ("<h2>Ops in execution order</h2>\n" + _table(head, rows) +
+            f'\n<p class="note">{_t(legend)}</p>')
+
+
+def _db_text(v) -> str | None:
+    import math
+    if v is None:
+        return None
+    return "exact" if math.isinf(v) else f"{v:.1f}"
+
+
+def _insight_section(c, lf: LayerFigures | None) -> str:
+    """Target cost, quantization error and accuracy summaries (what was measured)."""
+    if lf is None:
+        return ""
+    parts = []
+    if lf.cpu is not None:
+        total = sum((lf.instructions or {}).values())
+        rows = [["CPU (emulated)", _t(lf.cpu)], ["instructions per inference", str(total)],
+                ["instructions per MAC", f"{total / c.macs:.2f}" if c.macs else "-"],
+                ["stack B", _t(lf.stack_bytes)],
+                ["flash B (code + constants, measured)", _t(lf.target_flash_bytes)]]
+        parts.append("<h2>Target cost</h2>\n" + _table(None, [[f"<th>{a}</th>", f"<td>{b}</td>"]
+                                                              for a, b in rows]) +
+                     '\n<p class="note">Instructions are counted exactly by the emulator '
+                     "(not cycles; docs/target.md). Stack is the deepest the model's own "
+                     "frames reach in one run.</p>")
+    if lf.quant is not None:
+        q = lf.quant
+        w = q.worst
+        lines = [f"Float reference: {q.source}; {q.samples} samples.",
+                 "Outputs: " + ", ".join(f"{k} {_db_text(v) or '-'} dB"
+                                         for k, v in q.outputs.items()) +
+                 "; inputs: " + ", ".join(f"{k} {_db_text(v) or '-'} dB"
+                                          for k, v in q.inputs.items()) + "."]
+        if w is not None:
+            lines.append(f"Most lost at kernel call {w.call} ({w.kernel} from ONNX node "
+                         f"'{w.node}', {w.onnx_op}): {_db_text(w.sqnr_db)} dB after "
+                         f"{_db_text(w.input_sqnr_db)} dB at its inputs.")
+        parts.append("<h2>Quantization error</h2>\n" + "".join(f"<p>{_t(x)}</p>"
+                                                                 for x in lines) +
+                     '\n<p class="note">SQNR = 10 log10(sum f^2 / sum (f - r)^2) of each '
+                     "int8 tensor r (dequantized) against its float counterpart f; how a "
+                     "layer is matched: docs/numerics.md.</p>")
+    if lf.accuracy is not None:
+        a = lf.accuracy
+        rows = [[_s(k), _n(f"{100 * v:.2f}%" if v is not None else None)]
+                for k, v in a.top1.items()]
+        rows += [[_s(f"agreement {k}"), _n(f"{100 * v:.2f}%")] for k, v in a.agreement.items()]
+        parts.append(f"<h2>Accuracy ({a.samples} labelled samples, {a.classes} classes)</h2>\n"
+                     + _table(["top-1", ""], rows))
+    for note in lf.notes or []:
+        parts.append(f'<p class="note">{_t(note)}</p>')
+    return "\n".join(parts)
 
 
 def _buffers_section(c) -> str:
@@ -223,12 +405,13 @@ def _planner_section(c) -> str:
                     "arena B without in-place", "note"], rows, classes) + "\n" + note)
 
 
-def render_report(c, budget_ram: int | None, budget_flash: int | None, flags: str) -> str:
+def render_report(c, budget_ram: int | None, budget_flash: int | None, flags: str,
+                  layers: LayerFigures | None = None) -> str:
     """The whole HTML document as text (deterministic for the same model and flags)."""
-    return _render(c, verdicts(c, budget_ram, budget_flash, flags), flags)
+    return _render(c, verdicts(c, budget_ram, budget_flash, flags), flags, layers)
 
 
-def _render(c, vs: list[Verdict], flags: str) -> str:
+def _render(c, vs: list[Verdict], flags: str, layers: LayerFigures | None = None) -> str:
     parts = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
              f"<title>tinygen report: {_t(c.graph.name)}</title>",
              f"<style>{CSS}</style></head><body>",
@@ -238,20 +421,22 @@ def _render(c, vs: list[Verdict], flags: str) -> str:
              _budget_section(c, vs, flags), _model_section(c, flags),
              "<h2>Arena over time</h2>",
              '<p class="note">x: step in execution order; y: byte offset; one rectangle per '
-             "buffer (hover for its name). Dashed red: lower bound; green: live bytes; "
+             "buffer (hover for its name; buffers too small for the scale are drawn "
+             f"{MIN_BUFFER_PX:g} px tall). Dashed red: lower bound; green: live bytes; "
              "shaded: the peak step.</p>",
              f'<div class="picture">{plan_svg(c)}</div>',
-             _buffers_section(c), _ops_section(c), _planner_section(c),
+             _ops_section(c, flags, layers), _insight_section(c, layers),
+             _buffers_section(c), _planner_section(c),
              "</body></html>"]
     return "\n".join(parts) + "\n"
 
 
 def write_report(c, path: str, budget_ram: int | None, budget_flash: int | None,
-                 flags: str) -> list[str]:
+                 flags: str, layers: LayerFigures | None = None) -> list[str]:
     """Write the report to `path`; returns the verdict lines (also in the report)."""
     vs = verdicts(c, budget_ram, budget_flash, flags)
     try:
-        Path(path).write_text(_render(c, vs, flags), encoding="utf-8")
+        Path(path).write_text(_render(c, vs, flags, layers), encoding="utf-8")
     except OSError as exc:
         raise TinygenError(f"cannot write {path}: {exc.strerror}") from None
     return [v.line() for v in vs]

@@ -323,7 +323,7 @@ class _Canvas:
     def __init__(self, steps: int, ymax: int):
         self.steps = steps  # columns, including the caller's two
         self.cw = min(48.0, max(10.0, 760.0 / steps))
-        self.left, self.top, self.ph = 80.0, 64.0, 340.0
+        self.left, self.top, self.ph = 80.0, 74.0, 340.0
         self.pw = self.cw * steps
         self.width = self.left + self.pw + 170.0
         self.height = self.top + self.ph + 92.0
@@ -336,12 +336,17 @@ class _Canvas:
         return self.top + self.ph - nbytes * self.scale
 
 
+MIN_BUFFER_PX = 4.0  # a buffer of a few bytes in a large arena still shows as a bar
+
+
 def _buffer_rect(cv: _Canvas, r: BufferRow, n: int, i: int) -> tuple[str, str | None]:
-    """The rectangle of one buffer, and its label when one fits inside it."""
+    """The rectangle of one buffer, and its label when one fits inside it. Buffers too small
+    to see at this scale are drawn MIN_BUFFER_PX tall from their offset up."""
     b = r.buf
     x0, x1 = cv.x(b.first) + 1, cv.x(b.last + 1) - 1
     lo = r.base + (b.offset or 0)
-    y0, h = cv.y(lo + b.size), max(b.size * cv.scale, 1.0)
+    h = max(b.size * cv.scale, MIN_BUFFER_PX)
+    y0 = cv.y(lo) - h
     tip = (f"{r.ident} {printable(b.name)}: {b.size} B at offset {b.offset} in {b.region}, "
            f"steps {step_label(b.first, n)}..{step_label(b.last, n)}")
     rect = (f'<rect class="buf" x="{_f(x0)}" y="{_f(y0)}" width="{_f(x1 - x0)}" '
@@ -422,14 +427,11 @@ def plan_svg(c) -> str:
         out.append(f'<rect class="col" x="{_f(cv.x(s))}" y="{_f(cv.top)}" '
                    f'width="{_f(cv.cw)}" height="{_f(cv.ph)}" fill="#f5f5f5"/>')
     px = cv.x(fig.peak.step)
-    out.append(f'<rect class="peak" x="{_f(px)}" y="{_f(cv.top)}" width="{_f(cv.cw)}" '
-               f'height="{_f(cv.ph)}" fill="#ffd8a8"/>')
-    out.append(f'<text x="{_f(px + cv.cw / 2)}" y="{_f(cv.top - 5)}" text-anchor="middle" '
-               f'font-size="10" fill="{PEAK}">peak</text>')
     out += _axes(cv, ymax, prof, n)
     labels = []
-    for i, r in enumerate(rows):
-        rect, label = _buffer_rect(cv, r, n, i)
+    drawn = sorted(range(len(rows)), key=lambda i: -rows[i].buf.size)  # small ones on top
+    for i in drawn:
+        rect, label = _buffer_rect(cv, rows[i], n, i)
         out.append(rect)
         labels += [label] if label else []
     if len(plan.regions) > 1:  # region boundaries, each region named just above its base
@@ -446,9 +448,13 @@ def plan_svg(c) -> str:
                     for i, r in enumerate(prof))
     out.append(f'<path class="live" d="{path}" fill="none" stroke="{LIVE}" stroke-width="1.6" '
                'stroke-opacity="0.9"/>')
-    out.append(f'<rect class="peak-outline" x="{_f(px)}" y="{_f(cv.top)}" width="{_f(cv.cw)}" '
-               f'height="{_f(cv.ph)}" fill="none" stroke="{PEAK}" stroke-width="1.4" '
-               'stroke-dasharray="3 2"/>')
+    # the peak column: shaded over the buffers (as the legend shows it), its label above the
+    # plot area, clear of the arena and lower-bound lines at the top
+    out.append(f'<rect class="peak" x="{_f(px)}" y="{_f(cv.top)}" width="{_f(cv.cw)}" '
+               f'height="{_f(cv.ph)}" fill="#ffd8a8" fill-opacity="0.45" stroke="{PEAK}" '
+               'stroke-width="1.4" stroke-dasharray="3 2"/>')
+    out.append(f'<text class="peak-label" x="{_f(px + cv.cw / 2)}" y="{_f(cv.top - 14)}" '
+               f'text-anchor="middle" font-size="10" fill="{PEAK}" {HALO}>peak</text>')
     out += labels
     close = abs(fig.arena - fig.lower_bound) * cv.scale < 13
     out += _hline(cv, fig.arena, f"arena {fig.arena} B",
@@ -460,7 +466,7 @@ def plan_svg(c) -> str:
     out += [f'<path d="M{_f(lx)} {_f(ly)} H{_f(lx + 18)}" stroke="{LIVE}" stroke-width="1.6"/>',
             f'<text x="{_f(lx + 22)}" y="{_f(ly + 3.5)}" font-size="10">live bytes</text>',
             f'<rect x="{_f(lx)}" y="{_f(ly + 12)}" width="18" height="9" fill="#ffd8a8" '
-            f'stroke="{PEAK}" stroke-dasharray="3 2"/>',
+            f'fill-opacity="0.45" stroke="{PEAK}" stroke-dasharray="3 2"/>',
             f'<text x="{_f(lx + 22)}" y="{_f(ly + 20)}" font-size="10">peak step</text>']
     out.append("</svg>")
     return "\n".join(out) + "\n"
