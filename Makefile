@@ -22,15 +22,16 @@ demo: $(VENV)/.installed
 lint: $(VENV)/.installed
 	$(VENV)/bin/ruff check tinygen tests examples
 
-# The Arm cross toolchain and QEMU come from Debian's packages (target tests need them).
+# The Arm cross toolchain and QEMU come from Debian's packages (target tests need them), and
+# headless Chromium for the report's browser test.
 toolchain:
 	@if ! command -v arm-none-eabi-gcc >/dev/null || ! command -v qemu-system-arm >/dev/null \
-	    || ! command -v clang >/dev/null; then \
+	    || ! command -v clang >/dev/null || ! command -v chromium >/dev/null; then \
 	  if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null; then \
 	    apt-get update -q && DEBIAN_FRONTEND=noninteractive apt-get install -y -q \
-	      gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang; \
+	      gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang chromium; \
 	  else \
-	    echo "note: target tests will skip: install gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang"; \
+	    echo "note: target and browser tests will skip: install gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang chromium"; \
 	  fi; \
 	fi
 
