@@ -133,6 +133,8 @@ def make_parser() -> argparse.ArgumentParser:
                     choices=["cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33"])
     em.add_argument("--inputs", metavar="FILE.npz")
     em.add_argument("--samples", type=int, default=4, metavar="N")
+    em.add_argument("--trace", action="store_true",
+                    help="compare every op's output on the core and name the first that differs")
     add_build_flags(em)
     r = sub.add_parser("report", help="write an HTML report of memory and compute")
     r.add_argument("model")
@@ -298,6 +300,16 @@ def cmd_plan(args) -> int:
 def cmd_emulate(args) -> int:
     from tinygen.target_check import run_emulate
     info = run_emulate(args, build_options(args), flags_text(args))
+    trace = None
+    if args.trace:
+        from tinygen.check import load_inputs, random_inputs
+        from tinygen.compiler import compile_model
+        from tinygen.trace import trace_target
+        c = compile_model(args.model, build_options(args))
+        data = load_inputs(c.graph, args.inputs) if args.inputs else \
+            random_inputs(c.graph, args.samples)
+        trace = trace_target(c, data, args.cpu, flags_text(args))
+        info["trace"] = trace.as_json()
     if args.json:
         print(json.dumps(info))
     else:
@@ -306,7 +318,10 @@ def cmd_emulate(args) -> int:
              f"B, {info['instructions']} instructions for {info['macs']} MACs (all "
              f"{info['samples']} samples: {info['instructions_min']}.."
              f"{info['instructions_max']})")
-    return 0 if info["bit_exact"] else 1
+        if trace is not None:
+            _show("
+".join(trace.lines()))
+    return 0 if info["bit_exact"] and (trace is None or trace.equal) else 1
 
 
 def cmd_report(args) -> int:

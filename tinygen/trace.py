@@ -571,3 +571,87 @@ def _feeds(g: Graph, floats: list[np.ndarray], names: list[str]) -> dict[str, np
         if io.onnx_name in names:
             feeds[io.onnx_name] = np.asarray(x).astype(dt).reshape(g.tensors[io.name].shape)
     return feeds
+
+
+# ---------------------------------------------------------------------------- target runs
+
+
+def parse_trace_lines(text: str, sites: list[CallSite]) -> list[dict[int, bytes]]:
+    """Per sample {call: bytes} from the firmware's TRACE lines; a sample's lines come
+    before its SAMPLE line."""
+    samples: list[dict[int, bytearray]] = [{}]
+    for line in text.splitlines():
+        words = line.split()
+        if len(words) < 2 or words[0] != "TGFW":
+            continue
+        if words[1] == "SAMPLE":
+            samples.append({})
+        elif words[1] == "TRACE" and len(words) == 5:
+            call, offset = int(words[2], 16), int(words[3], 16)
+            buf = samples[-1].setdefault(call, bytearray())
+            if len(buf) != offset:
+                raise TinygenError("trace report: output chunks out of order")
+            buf += bytes.fromhex(words[4])
+    return [{k: bytes(v) for k, v in s.items()} for s in samples[:-1]]
+
+
+def target_captures(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
+                    flags: str = "trace", opt: str = "-Os", work: Path | None = None
+                    ) -> tuple[list[dict[int, np.ndarray]], list[CallSite], list[int]]:
+    """Run the trace build on an emulated Cortex-M (QEMU): per sample {call: output as
+    stored}, the call sites, and the calls whose output never arrived."""
+    from tinygen import emulate
+    from tinygen.check import c_inputs
+    from tinygen.harness import target
+    from tinygen.harness.toolchain import find_toolchain
+
+    g = c.graph
+    tools = find_toolchain()
+    board = target.board_for(cpu)
+    with tempfile.TemporaryDirectory(prefix="tinygen-target-trace-") as tmp:
+        root = Path(work) if work else Path(tmp)
+        tree, sites, _ = trace_tree(c, flags, root / "tree")
+        info = emulate.read_model_info(tree, c.options.prefix, c.options.io)
+        raw = [[np.ascontiguousarray(x).tobytes() for x in c_inputs(g, storage_inputs(g, s))]
+               for s in samples]
+        (root / "tg_fw_glue.h").write_text(emulate.glue_header(info))
+        (root / "tg_fw_samples.h").write_text(emulate.samples_header(info, raw))
+        fw = target.FIRMWARE_DIR
+        fw_flags = [*target.firmware_defines(board), *target.FIRMWARE_ONLY_FLAGS,
+                    f"-I{root}", f"-I{fw}", f"-I{tree}"]
+        objs = [target.compile_c(fw / name, root / "fw" / name.replace(".c", ".o"), board,
+                                 opt=opt, flags=fw_flags, tools=tools)
+                for name in ("tg_fw_startup.c", "tg_fw_semihost.c", "tg_fw_meas_main.c",
+                             "tg_fw_trace.c")]
+        tree_flags = [f"-I{tree}", "-include", str(tree / GLUE_NAME)]
+        objs += [target.compile_c(src, root / "tree_o" / f"{src.stem}.o", board, opt=opt,
+                                  flags=tree_flags, tools=tools)
+                 for src in target.tree_sources(tree)]
+        elf = target.link(objs, root / "trace.elf", board, opt=opt, tools=tools)
+        result = target.run_elf(elf, board, tools=tools,
+                                timeout=target.DEFAULT_TIMEOUT_S * max(1, len(samples)))
+        report = target.parse_report(result.stdout)
+        target.check_report(report, result, board)
+        per_sample = parse_trace_lines(result.stdout, sites)
+    if len(per_sample) != len(samples):
+        raise TinygenError(f"{cpu}: trace of {len(per_sample)} samples, expected {len(samples)}")
+    out, unseen = [], set()
+    for got in per_sample:
+        arrays = {}
+        for s in sites:
+            data = got.get(s.call, b"")
+            if len(data) != s.nbytes:
+                unseen.add(s.call)
+                data = bytes(s.nbytes)
+            arrays[s.call] = np.frombuffer(data, dtype=np.dtype(g.tensors[s.tensor].dtype))
+        out.append(arrays)
+    return out, sites, sorted(unseen)
+
+
+def trace_target(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
+                 flags: str = "trace") -> Trace:
+    """`emulate --trace`: the walk against the reference, on the emulated core."""
+    captures, sites, unseen = target_captures(c, samples, cpu, flags)
+    t = compare_with_reference(c, samples, captures, sites, unseen)
+    t.notes.append(f"outputs captured on {cpu} (QEMU) from the trace build")
+    return t
