@@ -133,13 +133,17 @@ def build_host(c: Compiled, flags: str, work: Path, sanitize: bool = False) -> H
 
 
 def run_check(c: Compiled, model_path: str, samples: list[list[np.ndarray]], flags: str,
-              against_ort: bool) -> CheckResult:
+              against_ort: bool, progress=None) -> CheckResult:
+    """Every sample through the host build (twice, two arena fills) and the reference.
+    progress: a tinygen.progress.Progress told each sample done (or None)."""
     g = c.graph
     mismatched = total = 0
     with tempfile.TemporaryDirectory(prefix="tinygen-check-") as tmp:
         host = build_host(c, flags, Path(tmp))
         ours_all = []
-        for floats in samples:
+        for n, floats in enumerate(samples):
+            if progress is not None:
+                progress.step(n)
             st = storage_inputs(g, floats)
             ref = run_reference(g, st, c.plan.order)
             outs = host.run(c_inputs(g, st), out_specs(g), io=c.options.io, fill=0x5A)

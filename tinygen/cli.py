@@ -14,6 +14,7 @@ import sys
 
 from tinygen import __version__
 from tinygen.errors import TinygenError
+from tinygen.progress import for_cli
 
 SIZE_RE = re.compile(r"^(0x[0-9a-fA-F]+|\d+)([kKmM]?)$")
 
@@ -202,19 +203,25 @@ def cmd_check(args) -> int:
         if args.samples < 1:
             raise TinygenError("--samples must be >= 1")
         samples = random_inputs(c.graph, args.samples)
+    progress = for_cli(args, "check")
     if args.sanitize:
         from tinygen.sanitize import run_sanitized
+        progress.phase("running under the sanitizers")
         res = run_sanitized(c, args.model, samples, flags_text(args), args.against_onnxruntime)
     else:
-        res = run_check(c, args.model, samples, flags_text(args), args.against_onnxruntime)
+        res = run_check(c, args.model, samples, flags_text(args), args.against_onnxruntime,
+                        progress.phase("C vs reference, samples", len(samples)))
     traces = []
     if args.trace:
         from tinygen.trace import trace_host
         traces = trace_host(c, samples, flags_text(args), args.model,
-                            args.against_onnxruntime)
+                            args.against_onnxruntime,
+                            progress.phase("trace, samples", len(samples)))
     traced_ok = all(t.equal for t in traces if t.against == "reference")
-    qerr, qerr_note = insight_quant_error(c, args, samples)
+    qerr, qerr_note = insight_quant_error(c, args, samples,
+                                          progress.phase("SQNR, samples", len(samples)))
     acc = insight_accuracy(c, args, samples, res, qerr)
+    progress.done()
     if args.json:
         info = res.as_json()
         if args.trace:
@@ -243,7 +250,7 @@ def cmd_check(args) -> int:
     return 0 if res.bit_exact and traced_ok else 1
 
 
-def insight_quant_error(c, args, samples):
+def insight_quant_error(c, args, samples, progress=None):
     """Per-layer SQNR: against --float-model, or, for a QDQ model, the float graph recovered
     from it. Returns (QuantError or None, a note saying why there is none)."""
     from tinygen.layer_error import float_reference, quantization_error
@@ -254,7 +261,7 @@ def insight_quant_error(c, args, samples):
         if float_model:
             raise
         return None, f"note: {exc.reason}"
-    return quantization_error(c, ref, samples), ""
+    return quantization_error(c, ref, samples, progress), ""
 
 
 def insight_accuracy(c, args, samples, res, qerr):
@@ -299,9 +306,12 @@ def cmd_plan(args) -> int:
 
 def cmd_emulate(args) -> int:
     from tinygen.target_check import run_emulate
+    progress = for_cli(args, "emulate")
+    progress.phase(f"building for {args.cpu} and running on QEMU")
     info = run_emulate(args, build_options(args), flags_text(args))
     trace = None
     if args.trace:
+        progress.phase(f"trace build on {args.cpu}")
         from tinygen.check import load_inputs, random_inputs
         from tinygen.compiler import compile_model
         from tinygen.trace import trace_target
@@ -310,6 +320,7 @@ def cmd_emulate(args) -> int:
             random_inputs(c.graph, args.samples)
         trace = trace_target(c, data, args.cpu, flags_text(args))
         info["trace"] = trace.as_json()
+    progress.done()
     if args.json:
         print(json.dumps(info))
     else:
@@ -335,8 +346,10 @@ def cmd_report(args) -> int:
         if args.samples < 1:
             raise TinygenError("--samples must be >= 1")
         samples = random_inputs(c.graph, args.samples)
+    progress = for_cli(args, "report").phase("measuring (emulation, SQNR, accuracy)")
     layers = measure_layers(c, args.model, flags_text(args), samples, args.cpu,
                             args.float_model, args.inputs)
+    progress.done()
     write_report(c, args.output, args.budget_ram, args.budget_flash, flags_text(args), layers)
     if args.json:
         print(json.dumps(dict(summary(c), report=args.output, const_bytes=c.const_bytes)))

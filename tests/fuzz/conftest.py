@@ -54,3 +54,39 @@ def pytest_terminal_summary(terminalreporter, config):
     how = f"seed {seed}; replay with --hypothesis-profile={profile} --hypothesis-seed={seed}" \
         if seed is not None else "derandomized (the same cases every run)"
     terminalreporter.write_line(f"tinygen fuzz: profile {profile}, {how}")
+
+
+# -- progress (make fuzz on a terminal): each property test's cases counted on one line ------
+
+_PROGRESS: dict = {}
+
+
+def pytest_collection_modifyitems(config, items):
+    """Count every case a property test runs, on stderr when it is a terminal (pytest
+    captures sys.stderr, so the real one is used; nothing is shown in logs or CI)."""
+    import sys
+
+    from tinygen.progress import Progress
+    stream = sys.__stderr__
+    if stream is None or not stream.isatty():
+        return
+    for item in items:
+        fn = getattr(item, "obj", None)
+        hyp = getattr(fn, "hypothesis", None)
+        if hyp is None or fn in _PROGRESS:
+            continue
+        progress = Progress(f"fuzz {fn.__name__}: cases", stream=stream)
+        _PROGRESS[fn] = progress
+        inner, count = hyp.inner_test, [0]
+
+        def counted(*args, _inner=inner, _progress=progress, _count=count, **kwargs):
+            _count[0] += 1
+            _progress.step(_count[0])
+            return _inner(*args, **kwargs)
+        hyp.inner_test = counted  # hypothesis' documented hook for wrapping the test body
+
+
+def pytest_runtest_teardown(item):
+    progress = _PROGRESS.get(getattr(item, "obj", None))
+    if progress is not None:
+        progress.done()
