@@ -90,3 +90,27 @@ def score(labels: np.ndarray, classes: int, c_outputs, ort_outputs=None, float_o
     agreement = {f"{a}/{b}": float(np.mean(preds[a] == preds[b]))
                  for i, a in enumerate(keys) for b in keys[i + 1:]}
     return Accuracy(int(labels.size), classes, top1, agreement, float_source, notes or [])
+
+
+def labelled_accuracy(c, model_path: str, inputs_path: str | None, samples, c_outputs,
+                      ort_outputs=None, quant_error=None) -> Accuracy | None:
+    """Top-1 accuracy when the --inputs file has labels (None otherwise). onnxruntime runs
+    the quantized model unless its outputs are given; the float outputs come from the
+    quantization-error pass (a QuantError), when there was one."""
+    from tinygen.check import load_labels
+    if not inputs_path:
+        return None
+    labels = load_labels(inputs_path, len(samples))
+    if labels is None:
+        return None
+    classes = check_labels(c.graph, labels, inputs_path)
+    notes = []
+    if ort_outputs is None:
+        try:
+            ort_outputs = onnxruntime_outputs(c.graph, model_path, samples)
+        except TinygenError as exc:
+            notes.append(f"onnxruntime not scored: {exc.reason}")
+    q = quant_error
+    return score(labels, classes, c_outputs, ort_outputs,
+                 q.float_outputs if q is not None else None,
+                 q.source if q is not None else None, notes)

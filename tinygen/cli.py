@@ -218,9 +218,12 @@ def cmd_check(args) -> int:
                             args.against_onnxruntime,
                             progress.phase("trace, samples", len(samples)))
     traced_ok = all(t.equal for t in traces if t.against == "reference")
-    qerr, qerr_note = insight_quant_error(c, args, samples,
-                                          progress.phase("SQNR, samples", len(samples)))
-    acc = insight_accuracy(c, args, samples, res, qerr)
+    from tinygen.accuracy import labelled_accuracy
+    from tinygen.layer_error import quantization_error_or_note
+    qerr, qerr_note = quantization_error_or_note(c, args.model, samples, args.float_model,
+                                                 progress.phase("SQNR, samples", len(samples)))
+    acc = labelled_accuracy(c, args.model, args.inputs, samples, res.outputs, res.ort_outputs,
+                            qerr)
     progress.done()
     if args.json:
         info = res.as_json()
@@ -244,46 +247,10 @@ def cmd_check(args) -> int:
         if qerr is not None:
             _say("\n".join(qerr.lines()))
         elif qerr_note:
-            _say(qerr_note)
+            _say(f"note: {qerr_note}")
         if acc is not None:
             _say("\n".join(acc.lines()))
     return 0 if res.bit_exact and traced_ok else 1
-
-
-def insight_quant_error(c, args, samples, progress=None):
-    """Per-layer SQNR: against --float-model, or, for a QDQ model, the float graph recovered
-    from it. Returns (QuantError or None, a note saying why there is none)."""
-    from tinygen.layer_error import float_reference, quantization_error
-    float_model = getattr(args, "float_model", None)
-    try:
-        ref = float_reference(c, args.model, float_model)
-    except TinygenError as exc:
-        if float_model:
-            raise
-        return None, f"note: {exc.reason}"
-    return quantization_error(c, ref, samples, progress), ""
-
-
-def insight_accuracy(c, args, samples, res, qerr):
-    """Top-1 accuracy when the --inputs file has labels (None otherwise)."""
-    from tinygen.accuracy import check_labels, onnxruntime_outputs, score
-    from tinygen.check import load_labels
-    if not getattr(args, "inputs", None):
-        return None
-    labels = load_labels(args.inputs, len(samples))
-    if labels is None:
-        return None
-    classes = check_labels(c.graph, labels, args.inputs)
-    notes = []
-    ort = res.ort_outputs
-    if ort is None:
-        try:
-            ort = onnxruntime_outputs(c.graph, args.model, samples)
-        except TinygenError as exc:
-            notes.append(f"onnxruntime not scored: {exc.reason}")
-    floats = qerr.float_outputs if qerr is not None else None
-    return score(labels, classes, res.outputs, ort, floats,
-                 qerr.source if qerr is not None else None, notes)
 
 
 def cmd_plan(args) -> int:

@@ -506,3 +506,17 @@ def _db_through_views(g: Graph, name: str, db: dict) -> float | None:
             return None
         name = prod.inputs[0]
     return None
+
+
+def quantization_error_or_note(c: Compiled, model_path: str, samples, float_model: str | None,
+                               progress=None) -> tuple[QuantError | None, str]:
+    """Per-layer SQNR against `float_model`, or, for a QDQ model without one, its recovered
+    float graph: (QuantError, "") or (None, why there is none). An unusable given float
+    model is an error; the automatic recovery only ever becomes a note."""
+    try:
+        ref = float_reference(c, model_path, float_model)
+    except TinygenError as exc:
+        if float_model:
+            raise
+        return None, exc.reason
+    return quantization_error(c, ref, samples, progress), ""

@@ -273,9 +273,8 @@ class Trace:
                          o.note or ""])
         head = ["call", "kernel", "ONNX node", "ONNX op", "onnxruntime ran", "differ",
                 "max LSB", ""]
-        if self.against == "reference":
-            head[4] = ""
-            rows = [r[:4] + [""] + r[5:] for r in rows]
+        if self.against == "reference":  # no "onnxruntime ran" column
+            head, rows = head[:4] + head[5:], [r[:4] + r[5:] for r in rows]
         return _columns(head, rows)
 
 
@@ -440,10 +439,8 @@ def onnx_elem_types(model) -> dict[str, int]:
                                               "QuantizeLinear" else 0)
             if not types[node.output[0]]:
                 del types[node.output[0]]
-        elif node.op_type in _MOVERS and node.input:
-            src = node.input[2] if node.op_type == "QLinearConcat" else node.input[0]
-            if src in types:
-                types[node.output[0]] = types[src]
+        elif node.op_type in _MOVERS and node.input and node.input[0] in types:
+            types[node.output[0]] = types[node.input[0]]
     return types
 
 

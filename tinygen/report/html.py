@@ -210,9 +210,9 @@ def measure_layers(c, model_path: str, flags: str, samples, cpu: str | None = No
                    ) -> LayerFigures:
     """Run what the per-layer columns need: the emulated core (cpu), the float reference
     (float_model, or a QDQ model's recovered float graph) and labelled accuracy."""
-    from tinygen.accuracy import check_labels, onnxruntime_outputs, score
+    from tinygen.accuracy import labelled_accuracy
     from tinygen.check import load_labels, run_check
-    from tinygen.layer_error import float_reference, quantization_error
+    from tinygen.layer_error import quantization_error_or_note
     lf = LayerFigures(notes=[])
     if cpu is not None:
         from tinygen.target_check import emulate_compiled
@@ -222,25 +222,14 @@ def measure_layers(c, model_path: str, flags: str, samples, cpu: str | None = No
         lf.stack_bytes, lf.target_flash_bytes = fig["stack_bytes"], fig["flash_bytes"]
         if not fig["bit_exact"]:
             lf.notes.append(f"the {cpu} build's outputs differ from the reference")
-    try:
-        ref = float_reference(c, model_path, float_model)
-        lf.quant = quantization_error(c, ref, samples)
-    except TinygenError as exc:
-        if float_model:
-            raise
-        lf.notes.append(exc.reason)
-    labels = load_labels(inputs_path, len(samples)) if inputs_path else None
-    if labels is not None:
-        classes = check_labels(c.graph, labels, inputs_path)
+    lf.quant, note = quantization_error_or_note(c, model_path, samples, float_model)
+    if note:
+        lf.notes.append(note)
+    if inputs_path and load_labels(inputs_path, len(samples)) is not None:
         res = run_check(c, model_path, samples, flags, against_ort=False)
-        try:
-            ort = onnxruntime_outputs(c.graph, model_path, samples)
-        except TinygenError as exc:
-            ort = None
-            lf.notes.append(f"onnxruntime not scored: {exc.reason}")
-        floats = lf.quant.float_outputs if lf.quant is not None else None
-        lf.accuracy = score(labels, classes, res.outputs, ort, floats,
-                            lf.quant.source if lf.quant is not None else None)
+        lf.accuracy = labelled_accuracy(c, model_path, inputs_path, samples, res.outputs,
+                                        quant_error=lf.quant)
+        lf.notes += lf.accuracy.notes
     return lf
 
 
