@@ -22,8 +22,8 @@ A third precision, "onnxruntime" (`--tables onnxruntime`), exists for sigmoid an
 dequantized input in float32, then the rational approximation onnxruntime's CPU provider
 evaluates on x86-64 (odd polynomial over even polynomial in x^2, each step a float32 fused
 multiply-add, the input clamped to +-18 for sigmoid and +-9 for tanh, sigmoid as 0.5 + p/q
-clamped to [0, 1]), then QuantizeLinear in float32. Coefficients from memory of that library's
-published source, confirmed by measurement: tests/runtime_c/test_lut.py feeds all 256 inputs of
+clamped to [0, 1]), then QuantizeLinear in float32. The coefficients are onnxruntime's (from
+memory), confirmed by measurement: tests/runtime_c/test_lut.py feeds all 256 inputs of
 random scales through onnxruntime 1.32 (QLinearSigmoid, and DequantizeLinear -> Sigmoid/Tanh ->
 QuantizeLinear) and requires every entry equal. The approximation is within ~1e-7 of the
 function, so these tables differ from the float64 ones only where a value sits that close to a
