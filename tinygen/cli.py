@@ -241,15 +241,15 @@ def cmd_check(args) -> int:
         if res.onnxruntime is not None:
             o = res.onnxruntime
             _show(f"vs onnxruntime: max |diff| {o['max_abs_diff']} LSB, "
-                 f"{100 * o['equal_fraction']:.2f}% of elements equal")
+                  f"{100 * o['equal_fraction']:.2f}% of elements equal")
         for t in traces:
-            _say("\n".join(t.lines()))
+            _show("\n".join(t.lines()))
         if qerr is not None:
-            _say("\n".join(qerr.lines()))
+            _show("\n".join(qerr.lines()))
         elif qerr_note:
             _say(f"note: {qerr_note}")
         if acc is not None:
-            _say("\n".join(acc.lines()))
+            _show("\n".join(acc.lines()))
     return 0 if res.bit_exact and traced_ok else 1
 
 
@@ -297,8 +297,7 @@ def cmd_emulate(args) -> int:
              f"{info['samples']} samples: {info['instructions_min']}.."
              f"{info['instructions_max']})")
         if trace is not None:
-            _show("
-".join(trace.lines()))
+            _show("\n".join(trace.lines()))
     return 0 if info["bit_exact"] and (trace is None or trace.equal) else 1
 
 

@@ -103,6 +103,6 @@ def test_cli_trace_names_the_faulty_op_and_exits_1(monkeypatch, capsys):
     site = call_sites(c)[2]
     inject_fault(monkeypatch, tinygen.trace, 2, 0, site.where)
     assert main(["check", str(PUMP), "--samples", "2", "--trace"]) == 1
-    err = capsys.readouterr().err
+    err = capsys.readouterr().out  # results go to stdout
     assert "first difference at kernel call 2" in err
     assert c.graph.ops[site.op_index].name in err

@@ -47,6 +47,6 @@ def test_target_trace_names_the_injected_fault(monkeypatch):
 def test_emulate_trace_cli(capsys):
     assert main(["emulate", str(GESTURE), "--cpu", "cortex-m33", "--samples", "1",
                  "--trace"]) == 0
-    err = capsys.readouterr().err
+    err = capsys.readouterr().out  # results go to stdout
     assert "trace, C vs reference: 10 kernel calls" in err and "every compared output equal" \
         in err
