@@ -16,7 +16,7 @@ from tinygen.passes.cleanup import collapse_views, drop_dead_ops, isolate_io
 from tinygen.passes.fuse import fuse_activation
 from tinygen.passes.layout import assign_layout
 from tinygen.passes.overflow import check_accumulators
-from tinygen.passes.params import lower_params
+from tinygen.passes.params import choose_requant_forms, lower_params
 from tinygen.plan import MemoryPlan, build_buffers, plan_memory, verify_plan
 from tinygen.plan.lifetimes import lower_bound
 from tinygen.schedule import order_ops
@@ -37,6 +37,7 @@ class BuildOptions:
     inplace: bool = True
     regions: list[tuple[str, int]] = field(default_factory=list)
     io: str = "arena"
+    kernels: str = "auto"  # auto: the fastest path of each core; portable: plain C only
 
 
 @dataclass
@@ -103,6 +104,7 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
     graph = isolate_io(graph)
     graph = lower_params(graph, opts.requant)
     graph = check_accumulators(graph)
+    graph = choose_requant_forms(graph)
     plan = plan_arena(graph, opts)
     macs = count_macs(graph)
     c = Compiled(graph, plan, opts, int(sum(macs)), constant_bytes(graph), macs)

@@ -182,6 +182,7 @@ class TreeWriter:
             "decls": self.pw.decls, "calls": calls, "headers": headers,
             "prologue": pro, "epilogue": epi, "flips": bool(pro or epi),
             "extra_regions": extra, "float_mode": c.options.requant == "float",
+            "portable_kernels": c.options.kernels == "portable",
         }
 
 
@@ -190,7 +191,8 @@ PRIVATE_HEADERS = {"conv": ("tg_window.h",), "pool": ("tg_window.h",)}
 
 
 def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
-    files = [("tg_requant.h", RUNTIME / "include" / "tg_requant.h")]
+    files = [("tg_requant.h", RUNTIME / "include" / "tg_requant.h"),
+             ("tg_arm_dsp.h", RUNTIME / "include" / "tg_arm_dsp.h")]
     private = sorted({h for f in families for h in PRIVATE_HEADERS.get(f, ())})
     files += [(h, RUNTIME / "include" / h) for h in private]
     for f in sorted(families):

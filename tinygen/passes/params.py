@@ -15,7 +15,7 @@ from tinygen.errors import TinygenError
 from tinygen.ir import Graph, Op, Tensor, storage_perm
 from tinygen.reference.conv import ConvParams
 from tinygen.reference.fc import FcParams
-from tinygen.reference.requant import Requant, make_requant, quantize_multiplier
+from tinygen.reference.requant import Requant, choose_form, make_requant, quantize_multiplier
 
 
 @dataclass
@@ -237,4 +237,19 @@ def lower_params(graph: Graph, mode: str) -> Graph:
     return graph
 
 
-__all__ = ["lower_params", "KernelCall", "quantize_multiplier", "logical_strides"]
+def choose_requant_forms(graph: Graph) -> Graph:
+    """Pick each conv/fc requantization's C form for the layer's proven accumulator bound
+    (a tighter bound than the int32 worst case may allow the pre-shifted fast form).
+
+    Needs: check_accumulators (op.attrs["acc_bound"]). Leaves: rq.form/chan/pre final.
+    """
+    for op in graph.ops:
+        call = op.attrs.get("call")
+        rq = getattr(call.params, "rq", None) if call else None
+        if isinstance(rq, Requant) and "acc_bound" in op.attrs:
+            choose_form(rq, op.attrs["acc_bound"])
+    return graph
+
+
+__all__ = ["lower_params", "choose_requant_forms", "KernelCall", "quantize_multiplier",
+           "logical_strides"]
