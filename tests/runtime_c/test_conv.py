@@ -29,6 +29,7 @@ from tinygen.reference.conv import (
     conv,
     conv_accumulators,
     conv_output_size,
+    conv_scratch_bytes,
     dwconv,
 )
 from tinygen.reference.requant import make_requant, mul_shift
@@ -46,9 +47,10 @@ typedef struct {
     int32_t in_zp;
     const int32_t *w_zp;
     const tg_requant_t *rq;
+    int32_t x_ring, y_ring;
 } tg_conv_params_t;
 void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
-             const int32_t *bias, void *y);
+             const int32_t *bias, void *y, void *scratch, int32_t row0, int32_t row1);
 void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
                const int32_t *bias, void *y);
 """
@@ -68,8 +70,12 @@ def run_c_conv(kernel: str, x, w, bias, p: ConvParams) -> np.ndarray:
                       w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq))
     y, y_ptr = m.output((p.n, p.out_h, p.out_w, p.out_c),
                         np.int32 if p.rq is None else np.int8)
-    getattr(lib, kernel)(params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
-                         m.array(bias, np.int32, "int32_t"), y_ptr)
+    args = [params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
+            m.array(bias, np.int32, "int32_t"), y_ptr]
+    if kernel == "tg_conv":  # the row-range call (DEVELOPERS.md, "Kernel calls")
+        scratch, scratch_ptr = m.output(conv_scratch_bytes(p) // 8 + 1, np.int64)
+        args += [scratch_ptr, 0, p.out_h]
+    getattr(lib, kernel)(*args)
     return y
 
 
@@ -426,11 +432,15 @@ def conv_case_c(tag: str, p: ConvParams, x, w, bias) -> tuple[str, list[str]]:
     fields = ", ".join(str(int(getattr(p, f))) for f in SCALAR_FIELDS)
     defs = (c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_w", "int8_t", w)
             + c_array(f"{tag}_bias", "int32_t", bias) + w_zp_def + rq_def
-            + f"static const tg_conv_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}}};\n")
+            + f"static const tg_conv_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}, "
+              "0, 0};\n")
     out_bytes = p.n * p.out_h * p.out_w * p.out_c * (1 if p.rq is not None else 4)
-    kernels = ["tg_conv"] + (["tg_dwconv"] if p.groups == p.in_c else [])
-    calls = [f"{k}(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y); "
-             f"tg_test_dump(\"{tag}_{k}\", y, {out_bytes});" for k in kernels]
+    assert conv_scratch_bytes(p) <= 8 * 1024
+    calls = [f"tg_conv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y, scratch, 0, {p.out_h}); "
+             f"tg_test_dump(\"{tag}_tg_conv\", y, {out_bytes});"]
+    if p.groups == p.in_c:
+        calls.append(f"tg_dwconv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y); "
+                     f"tg_test_dump(\"{tag}_tg_dwconv\", y, {out_bytes});")
     return defs, calls
 
 
@@ -457,7 +467,8 @@ def test_conv_on_cortex_m_matches_reference(core, tmp_path):
             expected[f"c{i}_tg_dwconv"] = y.tobytes()
     main_c = ('#include <stddef.h>\n#include "tg_conv.h"\n'
               "void tg_test_dump(const char *tag, const void *data, int32_t bytes);\n"
-              + "".join(defs) + "int main(void)\n{\n    static int32_t y[4096];\n    "
+              + "".join(defs) + "int main(void)\n{\n    static int32_t y[4096];\n"
+              "    static int64_t scratch[1024];\n    "
               + "\n    ".join(calls) + "\n    return 0;\n}\n")
     elf = build_cortex_m(["tg_conv.c"], main_c, core, tmp_path)
     # The M4 build must really take the SMLAD path, the M3 build must not.

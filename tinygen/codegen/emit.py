@@ -28,6 +28,7 @@ from tinygen.compiler import Compiled
 from tinygen.errors import TinygenError
 from tinygen.kernels import KERNELS
 from tinygen.passes.layout import storage_data
+from tinygen.plan.lifetimes import scratch_name
 
 RUNTIME = Path(__file__).resolve().parent.parent.parent / "runtime_c"
 TEMPLATES = Path(__file__).resolve().parent / "templates"
@@ -66,6 +67,15 @@ class TreeWriter:
         base = "a" if buf.region in (None, self.plan.regions[0].name) else \
             f"{self.P}_region_{buf.region}.bytes"
         return f"({base} + {off})" if off else base
+
+    def scratch_ptr(self, k: int) -> str:
+        """void * expression of op k's scratch buffer, or NULL when it needs none."""
+        buf = self.plan.buffers.get(scratch_name(k))
+        if buf is None:
+            return "NULL"
+        base = "a" if buf.region in (None, self.plan.regions[0].name) else \
+            f"{self.P}_region_{buf.region}.bytes"
+        return f"(void *)({base} + {buf.offset})" if buf.offset else f"(void *){base}"
 
     def const_array(self, name: str) -> str:
         if name not in self.const_names:
@@ -109,6 +119,8 @@ class TreeWriter:
                     f"  tg_concat(&{pname}, {arr}, {self.typed(call.args[-1], False)}); }}"]
         args = [self.typed(n, True) if n else "NULL" for n in call.args[:-1]]
         args.append(self.typed(call.args[-1], False))
+        if kern.rows:  # spatial kernel: scratch, then the output rows (here all of them)
+            args += [self.scratch_ptr(k), "0", str(call.params.out_h)]
         if call.batch > 1:  # the same call on consecutive slices
             args = [f"{a} + {st} * b" if st and a != "NULL" else a
                     for a, st in zip(args, call.batch_step, strict=True)]
@@ -187,7 +199,8 @@ class TreeWriter:
 
 
 # Private headers a kernel family's C file includes besides its own header.
-PRIVATE_HEADERS = {"conv": ("tg_window.h",), "pool": ("tg_window.h",)}
+PRIVATE_HEADERS = {"conv": ("tg_dot.h", "tg_window.h"), "pwconv": ("tg_dot.h",),
+                   "pool": ("tg_window.h",)}
 
 
 def runtime_files(families: set[str]) -> list[tuple[str, Path]]:

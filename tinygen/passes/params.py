@@ -15,6 +15,7 @@ from tinygen.errors import TinygenError
 from tinygen.ir import Graph, Op, Tensor, storage_perm
 from tinygen.reference.conv import ConvParams
 from tinygen.reference.fc import FcParams
+from tinygen.reference.pwconv import PwConvParams
 from tinygen.reference.requant import Requant, choose_form, make_requant, quantize_multiplier
 
 
@@ -67,8 +68,13 @@ def _conv(graph: Graph, op: Op, mode: str) -> KernelCall:
                    pad_top=pt, pad_left=pl, groups=op.attrs["group"],
                    in_zp=x.quant.scalar_zp(), w_zp=_w_zp(w, cout), rq=rq)
     depthwise = p.groups == p.in_c and p.groups > 1
-    return KernelCall("tg_dwconv" if depthwise else "tg_conv", "conv", p,
-                      [x.name, w.name, b.name, y.name])
+    args = [x.name, w.name, b.name, y.name]
+    if (kh, kw) == (1, 1) and p.groups == 1 and not any(op.attrs["pads"]):
+        pw = PwConvParams(n=p.n, in_h=p.in_h, in_w=p.in_w, in_c=p.in_c, out_h=p.out_h,
+                          out_w=p.out_w, out_c=p.out_c, stride_h=sh, stride_w=sw,
+                          in_zp=p.in_zp, w_zp=p.w_zp, rq=rq)
+        return KernelCall("tg_pwconv", "pwconv", pw, args)
+    return KernelCall("tg_dwconv" if depthwise else "tg_conv", "conv", p, args)
 
 
 def _fc(graph: Graph, op: Op, mode: str) -> KernelCall:

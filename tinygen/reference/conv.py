@@ -41,6 +41,14 @@ class ConvParams:
     in_zp: int = 0
     w_zp: np.ndarray | None = None
     rq: Requant | None = None
+    x_ring: int = 0  # rows held in a ring, 0: all (DEVELOPERS.md, "Kernel calls")
+    y_ring: int = 0
+
+
+def conv_scratch_bytes(p: ConvParams) -> int:
+    """Arena scratch of one tg_conv call (tg_conv.h): row pointers, raw patch, pair buffer."""
+    k_len = p.k_h * p.k_w * (p.in_c // p.groups)
+    return 8 * p.k_h + (k_len + 7) // 8 * 8 + 4 * ((k_len + 3) // 4 * 4)
 
 
 def conv_output_size(in_size: int, k: int, stride: int, dil: int, pad_begin: int,

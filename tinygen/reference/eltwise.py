@@ -173,6 +173,21 @@ def make_mul_params(a_shape, b_shape, s_a: float, z_a: int, s_b: float, z_b: int
     return p
 
 
+def overlap_margin(p: EltwiseParams) -> int | None:
+    """tg_add/tg_mul read element i of a before writing y[i] (tg_eltwise.h): y may start at
+    a's start or below it when a is dense with the output's shape; otherwise disjoint."""
+    dense = [int(v) for v in p.a_stride] == _dense_strides(p.shape)
+    return 0 if dense else None
+
+
+def _dense_strides(shape) -> list[int]:
+    out, acc = [0] * 4, 1
+    for i in range(3, -1, -1):
+        out[i] = acc if shape[i] != 1 else 0
+        acc *= int(shape[i])
+    return out
+
+
 def _gather(p: EltwiseParams, a: np.ndarray, b: np.ndarray):
     """Both inputs expanded to the rank-4 output walk, as int64."""
     idx = np.indices(p.shape, dtype=np.int64)
