@@ -13,6 +13,13 @@
 
 #include "tg_config.h"
 
+/* Inlined even at -Os: the hot per-output helpers, whose call would cost more than them. */
+#if defined(__GNUC__)
+#define TG_INLINE static inline __attribute__((always_inline))
+#else
+#define TG_INLINE static inline
+#endif
+
 #if defined(__ARM_FEATURE_DSP) && defined(__GNUC__) && defined(__OPTIMIZE__) \
     && !TG_KERNELS_PORTABLE
 #define TG_DSP 1
@@ -23,7 +30,7 @@
 
 #if TG_DSP
 /* hi32(a * b) + acc: the most significant word multiply-accumulate. */
-static inline int32_t tg_smmla(int32_t a, int32_t b, int32_t acc)
+TG_INLINE int32_t tg_smmla(int32_t a, int32_t b, int32_t acc)
 {
     int32_t r;
     __asm__("smmla %0, %1, %2, %3" : "=r"(r) : "r"(a), "r"(b), "r"(acc));
@@ -31,12 +38,12 @@ static inline int32_t tg_smmla(int32_t a, int32_t b, int32_t acc)
 }
 
 /* Bytes 0 and 2 of v, and bytes 1 and 3, sign-extended into int16 lanes, plus off. */
-static inline uint32_t tg_widen_even(uint32_t v, uint32_t off)
+TG_INLINE uint32_t tg_widen_even(uint32_t v, uint32_t off)
 {
     return (uint32_t)__sxtab16((int16x2_t)off, (int8x4_t)v);
 }
 
-static inline uint32_t tg_widen_odd(uint32_t v, uint32_t off)
+TG_INLINE uint32_t tg_widen_odd(uint32_t v, uint32_t off)
 {
     return (uint32_t)__sxtab16((int16x2_t)off, (int8x4_t)((v >> 8) | (v << 24)));
 }
@@ -46,7 +53,7 @@ static inline uint32_t tg_widen_odd(uint32_t v, uint32_t off)
 #define TG_DSP_FLOAT 1
 /* round_half_even(v) saturated to int32: VCVTR rounds in the FPSCR mode, which C code
  * may assume is the default round-to-nearest-even (C99 7.6.1, FENV_ACCESS off). */
-static inline int32_t tg_round_even_sat(float v)
+TG_INLINE int32_t tg_round_even_sat(float v)
 {
     float r;
     int32_t i;

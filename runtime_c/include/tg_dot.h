@@ -89,7 +89,7 @@ static inline int32_t tg_dot_widen(const int8_t *raw, int32_t len, int32_t in_zp
 
 #if TG_DSP
 /* acc += the 2x2 dot products over `groups` whole groups (groups >= 1); x, w0, w1 advance. */
-static inline void tg_dot_2x2_groups(const int16_t **x, const int8_t **w0, const int8_t **w1,
+TG_INLINE void tg_dot_2x2_groups(const int16_t **x, const int8_t **w0, const int8_t **w1,
                                      int32_t groups, int32_t acc[4])
 {
     int32_t a00 = acc[0], a01 = acc[1], a10 = acc[2], a11 = acc[3];
@@ -135,7 +135,7 @@ static inline void tg_dot_2x2_groups(const int16_t **x, const int8_t **w0, const
 
 /* acc[0..1] (pixel 0, channels j, j+1) and acc[2..3] (pixel 1) += the dot products of the
  * pair buffer xw with weight rows w0, w1 over len elements. */
-static inline void tg_dot_2x2(const int16_t *xw, const int8_t *w0, const int8_t *w1,
+TG_INLINE void tg_dot_2x2(const int16_t *xw, const int8_t *w0, const int8_t *w1,
                               int32_t len, int32_t acc[4])
 {
     int32_t a00, a01, a10, a11;
@@ -205,6 +205,36 @@ static void tg_dot_channels(const tg_dot_job_t *j, const int16_t *xw, int32_t xs
     const int32_t lo = rq != NULL ? rq->act_min : 0, hi = rq != NULL ? rq->act_max : 0;
     const int clamps = lo > -128 || hi < 127;
     int32_t c;
+    if (fast && j->bias != NULL && j->w_zp == NULL && !clamps && nc % 2 == 0) {
+        /* The common case as one tight loop: pointers walk, nothing is re-derived. */
+        const int8_t *w0 = j->w;
+        const int32_t *bias = j->bias + c0;
+        const int32_t *e = rq->chan + 3 * c0;
+        int8_t *o0 = (int8_t *)y0;
+        int8_t *o1 = y1 != NULL ? (int8_t *)y1 : o0;  /* a lone pixel writes pixel 0 twice */
+        for (c = 0; c < nc; c += 2, w0 += 2 * k_len, bias += 2, e += 6, o0 += 2, o1 += 2) {
+            tg_rq_chan_t k0, k1;
+            int32_t acc[4];
+            acc[0] = acc[2] = bias[0];
+            acc[1] = acc[3] = bias[1];
+            tg_dot_2x2(xw, w0, w0 + k_len, len, acc);
+            if (y1 == NULL) {
+                acc[2] = acc[0];
+                acc[3] = acc[1];
+            }
+            k0.mult = e[0];
+            k0.add = e[1];
+            k0.shift = e[2];
+            k1.mult = e[3];
+            k1.add = e[4];
+            k1.shift = e[5];
+            o0[0] = (int8_t)tg_rq_apply(k0, (int32_t)((uint32_t)acc[0] << pre));
+            o0[1] = (int8_t)tg_rq_apply(k1, (int32_t)((uint32_t)acc[1] << pre));
+            o1[0] = (int8_t)tg_rq_apply(k0, (int32_t)((uint32_t)acc[2] << pre));
+            o1[1] = (int8_t)tg_rq_apply(k1, (int32_t)((uint32_t)acc[3] << pre));
+        }
+        return;
+    }
     for (c = 0; c < nc; c += 2) {
         const int32_t c1 = c + 1 < nc ? c + 1 : c;  /* a lone last channel pairs with itself */
         const int8_t *w0 = j->w + c * k_len;

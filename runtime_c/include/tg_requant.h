@@ -78,7 +78,7 @@ static inline int32_t tg_clamp32(int64_t v, int32_t lo, int32_t hi)
 }
 
 /* v saturated to [-128, 127]. */
-static inline int32_t tg_sat8(int32_t v)
+TG_INLINE int32_t tg_sat8(int32_t v)
 {
 #if TG_DSP
     return __ssat(v, 8);
@@ -92,7 +92,7 @@ typedef struct {
     int32_t mult, add, shift;
 } tg_rq_chan_t;
 
-static inline tg_rq_chan_t tg_rq_load(const tg_requant_t *rq, int32_t c)
+TG_INLINE tg_rq_chan_t tg_rq_load(const tg_requant_t *rq, int32_t c)
 {
     tg_rq_chan_t k;
     const int32_t *e = rq->chan + 3 * c;
@@ -104,7 +104,7 @@ static inline tg_rq_chan_t tg_rq_load(const tg_requant_t *rq, int32_t c)
 
 /* TG_RQ_FAST of one accumulator (already shifted left by rq->pre), saturated to int8; the
  * caller clamps to [act_min, act_max] when that range is narrower. */
-static inline int32_t tg_rq_apply(tg_rq_chan_t k, int32_t acc)
+TG_INLINE int32_t tg_rq_apply(tg_rq_chan_t k, int32_t acc)
 {
 #if TG_DSP
     return __ssat(tg_smmla(acc, k.mult, k.add) >> k.shift, 8);
