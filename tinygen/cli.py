@@ -56,6 +56,8 @@ def add_build_flags(p: argparse.ArgumentParser) -> None:
     g.add_argument("--region", action="append", type=parse_region, default=[],
                    metavar="NAME=SIZE", help="memory region, first = arena (repeatable)")
     g.add_argument("--io", choices=["arena", "external"], default="arena")
+    g.add_argument("--kernels", choices=["auto", "portable"], default="auto",
+                   help="auto: each core's fastest kernels; portable: plain C on every core")
     p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
 
 
@@ -70,12 +72,12 @@ def build_options(args):
                         input_shapes=args.input_shape, planner=args.planner, order=args.order,
                         align=args.align, arena_limit=args.arena_limit,
                         flash_limit=args.flash_limit, inplace=not args.no_inplace,
-                        regions=args.region, io=args.io)
+                        regions=args.region, io=args.io, kernels=args.kernels)
 
 
 def flags_text(args) -> str:
     parts = [f"--requant {args.requant}", f"--planner {args.planner}", f"--order {args.order}",
-             f"--align {args.align}", f"--io {args.io}"]
+             f"--align {args.align}", f"--io {args.io}", f"--kernels {args.kernels}"]
     if args.no_inplace:
         parts.append("--no-inplace")
     parts += [f"--region {n}={s}" for n, s in args.region]
