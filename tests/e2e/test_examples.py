@@ -25,11 +25,12 @@ MODELS = sorted(p for p in (ROOT / "examples").glob("*/*.onnx") if not p.stem.en
 # while our tables follow the ONNX definition -- which the onnx.reference test below checks.
 ORT_FLOAT_TOLERANCE = {"gesture_band": 6}
 ORT_FIXED_TOLERANCE = {"gesture_band": 10}
-QDQ_MODELS = [m for m in MODELS if m.stem in ("pump_vibration", "gesture_band")]
+QDQ_MODELS = [m for m in MODELS if m.stem in ("pump_vibration", "gesture_band", "recycling_belt")]
 
 
 def test_examples_exist():
-    assert {p.stem for p in MODELS} >= {"pump_vibration", "door_camera", "gesture_band"}
+    assert {p.stem for p in MODELS} >= {"pump_vibration", "door_camera", "gesture_band",
+                                       "recycling_belt"}
 
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda p: p.stem)
