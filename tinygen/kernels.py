@@ -36,7 +36,7 @@ class Kernel:
     rows: a spatial kernel called as f(p, inputs..., y, scratch, row0, row1) on output rows
     [row0, row1), with p.x_ring / p.y_ring (DEVELOPERS.md, "Kernel calls"); otherwise the
     call is f(p, inputs..., y). scratch_bytes(params): arena bytes the call needs as
-    `scratch` (8-byte aligned; 0: it gets NULL). overlap_margin(params): None when y and
+    `scratch` (4-byte aligned; 0: it gets NULL). overlap_margin(params): None when y and
     input 0 must be disjoint, else d: every placement with y_start <= x_start + d is safe.
     access_steps(params): (last_read per byte of input 0, written_at per output byte), the
     step model behind overlap_margin (None: the kernel declares no overlap).

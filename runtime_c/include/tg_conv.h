@@ -7,8 +7,8 @@
  * With rq != NULL y is int8 (requantized); with rq == NULL y is the raw int32 accumulator.
  * tg_conv call (DEVELOPERS.md, "Kernel calls"): output rows [row0, row1) of the output image
  * (0, out_h: every image; a partial range needs n == 1); x_ring / y_ring: 0 = the whole
- * tensor is there, R > 0 = row r at (r mod R) * row_bytes (n == 1). scratch: 8-byte
- * aligned, 8*k_h + ((k_len + 7) & ~7) + 4*((k_len + 3) & ~3) bytes with
+ * tensor is there, R > 0 = row r at (r mod R) * row_bytes (n == 1). scratch: 4-byte
+ * aligned, 4*k_h + ((k_len + 3) & ~3) + 4*((k_len + 3) & ~3) bytes with
  * k_len = k_h*k_w*in_c/groups (tinygen.reference.conv.conv_scratch_bytes).
  */
 #ifndef TG_CONV_H

@@ -8,7 +8,7 @@
  * Call (DEVELOPERS.md, "Kernel calls"): output rows [row0, row1) of the output image; 0,
  * out_h covers every image, a partial range needs n == 1. x_ring / y_ring: 0 = the whole
  * tensor is there, R > 0 = row r lives at (r mod R) * row_bytes (n == 1).
- * scratch: tg_pwconv_scratch_bytes(in_c) = 4 * ((in_c + 3) & ~3) bytes, 8-byte aligned.
+ * scratch: tg_pwconv_scratch_bytes(in_c) = 4 * ((in_c + 3) & ~3) bytes, 4-byte aligned.
  * Overlap: pixels are taken in pairs in increasing order (whole tensor, stride 1, no rings:
  * pairs over all n*out_h*out_w pixels; otherwise within each row), both inputs of a pair
  * read before any of its outputs is written. So y may start at x + d, with

@@ -84,18 +84,19 @@ static inline uint32_t tg_conv_neg_pair(int32_t zp)
 
 /* ---- tg_conv ------------------------------------------------------------------------- */
 
-/* Scratch of one call (tg_conv.h): the k_h input row pointers of the output row being made
- * (8 bytes each), the raw patch (k_len int8, rounded up to 8) and the pair buffer. */
+/* Scratch of one call (tg_conv.h), 4-byte aligned: the byte offsets into x of the k_h input
+ * rows of the output row being made (int32 each, not pointers: 4-byte alignment is all the
+ * plan promises), the raw patch (k_len int8, rounded up to 4) and the pair buffer. */
 static int32_t tg_conv_raw_offset(const tg_conv_params_t *p)
 {
-    return 8 * p->k_h;
+    return 4 * p->k_h;
 }
 
 /* The patch of output column ox, group g, into raw: tap (ky, kx), channel ci of the group
- * at ky * k_w * in_pg + kx * in_pg + ci; rows[ky] is the input row of tap row ky (NULL:
+ * at ky * k_w * in_pg + kx * in_pg + ci; x + rows[ky] is the input row of tap row ky (-1:
  * padding); padding reads as in_zp. */
-static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *const *rows, int32_t ox,
-                           int32_t g, int8_t *raw)
+static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, const int32_t *rows,
+                           int32_t ox, int32_t g, int8_t *raw)
 {
     const int32_t in_pg = p->in_c / p->groups;
     const int32_t row_len = p->k_w * in_pg;
@@ -103,12 +104,12 @@ static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *const *rows,
     int32_t kx0, kx1, ky, kx;
     tg_tap_range(base_x, p->dil_w, p->k_w, p->in_w, &kx0, &kx1);
     for (ky = 0; ky < p->k_h; ++ky, raw += row_len) {
-        const int8_t *row = rows[ky];
-        if (row == NULL || kx0 == kx1) {
+        const int8_t *row;
+        if (rows[ky] < 0 || kx0 == kx1) {
             memset(raw, (int8_t)p->in_zp, (size_t)row_len);
             continue;
         }
-        row += g * in_pg;
+        row = x + rows[ky] + g * in_pg;
         memset(raw, (int8_t)p->in_zp, (size_t)(kx0 * in_pg));
         if (p->dil_w == 1 && in_pg == p->in_c) {  /* the valid taps are one run of x */
             memcpy(raw + kx0 * in_pg, row + (base_x + kx0) * p->in_c,
@@ -131,9 +132,9 @@ void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
     const int32_t e = p->rq != NULL ? 1 : 4;  /* output element bytes */
     const int32_t x_row = p->in_w * p->in_c, y_row = p->out_w * p->out_c * e;
     const int32_t images = row0 == 0 && row1 == p->out_h ? p->n : 1;
-    const int8_t **rows = (const int8_t **)scratch;
+    int32_t *rows = (int32_t *)scratch;
     int8_t *raw = (int8_t *)scratch + tg_conv_raw_offset(p);
-    int16_t *xw = (int16_t *)(void *)(raw + ((k_len + 7) & ~7));
+    int16_t *xw = (int16_t *)(void *)(raw + ((k_len + 3) & ~3));
     tg_dot_job_t job;
     int32_t b, r, ky, ox, g;
     job.bias = bias;
@@ -143,14 +144,14 @@ void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
     job.len = k_len;
     job.nc = out_pg;
     for (b = 0; b < images; ++b) {
-        const int8_t *xb = x + b * p->in_h * x_row;
+        const int32_t xb = b * p->in_h * x_row;
         int8_t *yb = (int8_t *)y + b * p->out_h * y_row;
         for (r = row0; r < row1; ++r) {
             int8_t *yr = yb + (p->y_ring ? r % p->y_ring : r) * y_row;
             /* The row addresses, once per output row: a ring wraps here, not per pixel. */
             for (ky = 0; ky < p->k_h; ++ky) {
                 const int32_t iy = r * p->stride_h - p->pad_top + ky * p->dil_h;
-                rows[ky] = iy < 0 || iy >= p->in_h ? NULL
+                rows[ky] = iy < 0 || iy >= p->in_h ? -1
                                                    : xb + (p->x_ring ? iy % p->x_ring : iy) * x_row;
             }
             for (ox = 0; ox < p->out_w; ox += 2) {
@@ -158,10 +159,10 @@ void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
                 int8_t *y0 = yr + ox * p->out_c * e;
                 for (g = 0; g < p->groups; ++g) {
                     int32_t xs0, xs1;
-                    tg_conv_gather(p, rows, ox, g, raw);
+                    tg_conv_gather(p, x, rows, ox, g, raw);
                     xs0 = tg_dot_widen(raw, k_len, p->in_zp, xw, 0);
                     if (two) {
-                        tg_conv_gather(p, rows, ox + 1, g, raw);
+                        tg_conv_gather(p, x, rows, ox + 1, g, raw);
                     }
                     xs1 = tg_dot_widen(raw, k_len, p->in_zp, xw, 1);
                     job.w = w + g * out_pg * k_len;

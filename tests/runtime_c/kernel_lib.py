@@ -97,6 +97,12 @@ class Marshal:
         self._keep.append(out)
         return out, self.ffi.cast("void *", self.ffi.from_buffer(out))
 
+    def scratch(self, nbytes: int):
+        """A scratch pointer that is 4-byte aligned but not 8 (the least the plan promises)."""
+        buf = np.zeros(nbytes // 8 + 2, dtype=np.int64)
+        self._keep.append(buf)
+        return self.ffi.cast("char *", self.ffi.from_buffer(buf)) + 4
+
     def requant(self, rq: Requant | None):
         """tg_requant_t * for rq (NULL for None), in the form rq says (float: chan NULL)."""
         if rq is None:

@@ -73,8 +73,7 @@ def run_c_conv(kernel: str, x, w, bias, p: ConvParams) -> np.ndarray:
     args = [params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
             m.array(bias, np.int32, "int32_t"), y_ptr]
     if kernel == "tg_conv":  # the row-range call (DEVELOPERS.md, "Kernel calls")
-        scratch, scratch_ptr = m.output(conv_scratch_bytes(p) // 8 + 1, np.int64)
-        args += [scratch_ptr, 0, p.out_h]
+        args += [m.scratch(conv_scratch_bytes(p)), 0, p.out_h]
     getattr(lib, kernel)(*args)
     return y
 
@@ -435,8 +434,10 @@ def conv_case_c(tag: str, p: ConvParams, x, w, bias) -> tuple[str, list[str]]:
             + f"static const tg_conv_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}, "
               "0, 0};\n")
     out_bytes = p.n * p.out_h * p.out_w * p.out_c * (1 if p.rq is not None else 4)
-    assert conv_scratch_bytes(p) <= 8 * 1024
-    calls = [f"tg_conv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y, scratch, 0, {p.out_h}); "
+    assert conv_scratch_bytes(p) <= 8 * 1024 - 8
+    # scratch 4 bytes into an int64 array: 4-byte aligned, not 8 (the least the plan gives)
+    calls = [f"tg_conv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y, (int32_t *)scratch + 1, "
+             f"0, {p.out_h}); "
              f"tg_test_dump(\"{tag}_tg_conv\", y, {out_bytes});"]
     if p.groups == p.in_c:
         calls.append(f"tg_dwconv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y); "

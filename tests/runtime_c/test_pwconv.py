@@ -79,7 +79,7 @@ def c_call(p: PwConvParams, x_buf: np.ndarray, w, bias, y_buf: np.ndarray, row0:
     params = m.struct("tg_pwconv_params_t", **{f: int(getattr(p, f)) for f in SCALARS},
                       w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq),
                       x_ring=p.x_ring, y_ring=p.y_ring)
-    scratch, scratch_ptr = m.output(scratch_bytes(p) // 8 + 1, np.int64)
+    scratch_ptr = m.scratch(scratch_bytes(p))
     x_ptr = ffi.cast("int8_t *", ffi.from_buffer(x_buf))
     y_ptr = (ffi.cast("void *", ffi.from_buffer(y_buf)) if y_offset is None
              else ffi.cast("void *", x_ptr + y_offset))
@@ -231,7 +231,7 @@ def test_pwconv_on_cortex_m_matches_reference(core, tmp_path):
                     + f"static const tg_pwconv_params_t {tag}_p = {{{fields}, {w_zp_expr}, "
                       f"{rq_expr}, 0, 0}};\n")
         want = pwconv(x, w, bias, p)
-        calls.append(f"tg_pwconv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y, scratch, 0, "
+        calls.append(f"tg_pwconv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y, (int32_t *)scratch + 1, 0, "
                      f"{p.out_h}); tg_test_dump(\"{tag}\", y, {want.nbytes});")
         expected[tag] = want.tobytes()
     main_c = ('#include <stddef.h>\n#include "tg_pwconv.h"\n'

@@ -46,9 +46,9 @@ class ConvParams:
 
 
 def conv_scratch_bytes(p: ConvParams) -> int:
-    """Arena scratch of one tg_conv call (tg_conv.h): row pointers, raw patch, pair buffer."""
+    """Arena scratch of one tg_conv call (tg_conv.h): row offsets, raw patch, pair buffer."""
     k_len = p.k_h * p.k_w * (p.in_c // p.groups)
-    return 8 * p.k_h + (k_len + 7) // 8 * 8 + 4 * ((k_len + 3) // 4 * 4)
+    return 4 * p.k_h + 5 * ((k_len + 3) // 4 * 4)
 
 
 def conv_output_size(in_size: int, k: int, stride: int, dil: int, pad_begin: int,
