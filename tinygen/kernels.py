@@ -64,8 +64,9 @@ def _fc_ref(p, x, w, bias):
     return ref_fc.fc(x.reshape(p.rows, p.depth), w, bias, p)
 
 
-def _pwconv_ref(p, x, w, bias):
-    return ref_pwconv.pwconv(x.reshape(p.n, p.in_h, p.in_w, p.in_c), w, bias, p)
+def _pwconv_ref(p, x):
+    """tg_pwconv reads its weights from p.pack; the reference takes p.w and p.bias."""
+    return ref_pwconv.pwconv(x.reshape(p.n, p.in_h, p.in_w, p.in_c), p.w, p.bias, p)
 
 
 def _elementwise_steps(p, *_):

@@ -13,7 +13,6 @@ from tests.runtime_c.kernel_lib import (
     Marshal,
     build_cortex_m,
     c_array,
-    c_optional_array,
     c_requant,
     cortex_m_tools_available,
     disassembly,
@@ -27,6 +26,7 @@ from tinygen.reference.pwconv import (
     overlap_margin,
     pwconv,
     scratch_bytes,
+    with_pack,
 )
 from tinygen.reference.requant import make_requant
 from tinygen.reference.rows import run_rows
@@ -37,12 +37,12 @@ typedef struct {
     int32_t out_h, out_w, out_c;
     int32_t stride_h, stride_w;
     int32_t in_zp;
-    const int32_t *w_zp;
+    const int32_t *pack;
     const tg_requant_t *rq;
     int32_t x_ring, y_ring;
 } tg_pwconv_params_t;
-void tg_pwconv(const tg_pwconv_params_t *p, const int8_t *x, const int8_t *w,
-               const int32_t *bias, void *y, void *scratch, int32_t row0, int32_t row1);
+void tg_pwconv(const tg_pwconv_params_t *p, const int8_t *x, void *y, void *scratch,
+               int32_t row0, int32_t row1);
 """
 SCALARS = ("n", "in_h", "in_w", "in_c", "out_h", "out_w", "out_c", "stride_h", "stride_w",
            "in_zp")
@@ -51,7 +51,7 @@ SCALARS = ("n", "in_h", "in_w", "in_c", "out_h", "out_w", "out_c", "stride_h", "
 def random_case(seed: int):
     rng = np.random.default_rng(seed)
     mode = ("fixed", "float", "int32")[seed % 3]
-    in_c = int(rng.choice([1, 3, 4, 5, 16, 17, 24, 33]))
+    in_c = int(rng.choice([1, 3, 4, 5, 16, 17, 24, 33, 40, 70]))
     out_c = int(rng.integers(1, 21))
     sh, sw = (1, 1) if seed % 4 else (int(rng.integers(1, 3)), int(rng.integers(1, 4)))
     in_h, in_w = int(rng.integers(1, 7)), int(rng.integers(1, 9))
@@ -68,23 +68,24 @@ def random_case(seed: int):
     x = rng.integers(-128, 128, size=(p.n, in_h, in_w, in_c), dtype=np.int8)
     w = rng.integers(-128, 128, size=(out_c, in_c), dtype=np.int8)
     bias = rng.integers(-5000, 5001, size=out_c, dtype=np.int32)
-    return p, x, w, bias
+    return with_pack(p, w, bias), x, w, bias
 
 
 def c_call(p: PwConvParams, x_buf: np.ndarray, w, bias, y_buf: np.ndarray, row0: int,
            row1: int, y_offset: int | None = None):
-    """tg_pwconv on x_buf -> y_buf (or, with y_offset, y written into x_buf's own bytes)."""
+    """tg_pwconv on x_buf -> y_buf (or, with y_offset, y written into x_buf's own bytes);
+    the weights and bias the C reads are p's pack, built from w and bias."""
     ffi, lib = kernel_lib(["tg_pwconv.c"], REQUANT_CDEF + PWCONV_CDEF)
     m = Marshal(ffi)
+    with_pack(p, w, bias)
     params = m.struct("tg_pwconv_params_t", **{f: int(getattr(p, f)) for f in SCALARS},
-                      w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq),
+                      pack=m.array(p.pack, np.int32, "int32_t"), rq=m.requant(p.rq),
                       x_ring=p.x_ring, y_ring=p.y_ring)
     scratch_ptr = m.scratch(scratch_bytes(p))
     x_ptr = ffi.cast("int8_t *", ffi.from_buffer(x_buf))
     y_ptr = (ffi.cast("void *", ffi.from_buffer(y_buf)) if y_offset is None
              else ffi.cast("void *", x_ptr + y_offset))
-    lib.tg_pwconv(params, x_ptr, m.array(w, np.int8, "int8_t"),
-                  m.array(bias, np.int32, "int32_t"), y_ptr, scratch_ptr, row0, row1)
+    lib.tg_pwconv(params, x_ptr, y_ptr, scratch_ptr, row0, row1)
 
 
 def out_dtype(p):
@@ -223,15 +224,14 @@ def test_pwconv_on_cortex_m_matches_reference(core, tmp_path):
         if p.rq is not None and p.rq.is_float and core is CORTEX_M3:
             continue
         tag = f"p{i}"
-        w_zp_def, w_zp_expr = c_optional_array(f"{tag}_w_zp", "int32_t", p.w_zp)
         rq_def, rq_expr = c_requant(f"{tag}_rq", p.rq)
         fields = ", ".join(str(int(getattr(p, f))) for f in SCALARS)
-        defs.append(c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_w", "int8_t", w)
-                    + c_array(f"{tag}_bias", "int32_t", bias) + w_zp_def + rq_def
-                    + f"static const tg_pwconv_params_t {tag}_p = {{{fields}, {w_zp_expr}, "
+        defs.append(c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_pack", "int32_t", p.pack)
+                    + rq_def
+                    + f"static const tg_pwconv_params_t {tag}_p = {{{fields}, {tag}_pack, "
                       f"{rq_expr}, 0, 0}};\n")
         want = pwconv(x, w, bias, p)
-        calls.append(f"tg_pwconv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y, (int32_t *)scratch + 1, 0, "
+        calls.append(f"tg_pwconv(&{tag}_p, {tag}_x, y, (int32_t *)scratch + 1, 0, "
                      f"{p.out_h}); tg_test_dump(\"{tag}\", y, {want.nbytes});")
         expected[tag] = want.tobytes()
     main_c = ('#include <stddef.h>\n#include "tg_pwconv.h"\n'
@@ -240,7 +240,10 @@ def test_pwconv_on_cortex_m_matches_reference(core, tmp_path):
               "    static int64_t scratch[64];\n    " + "\n    ".join(calls)
               + "\n    return 0;\n}\n")
     elf = build_cortex_m(["tg_pwconv.c"], main_c, core, tmp_path)
-    assert ("smlad" in disassembly(elf)) == (core is CORTEX_M4)
+    # The M4 build must really run the assembly routines (in_c 33+ takes the long one).
+    dis = disassembly(elf)
+    assert ("smlad" in dis) == (core is CORTEX_M4)
+    assert ("<tg_pw_dsp_long>:" in dis) == (core is CORTEX_M4)
     dumps = run_qemu(elf, core)
     assert dumps.keys() == expected.keys()
     for tag, want in expected.items():

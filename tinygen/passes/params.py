@@ -13,9 +13,10 @@ import numpy as np
 
 from tinygen.errors import TinygenError
 from tinygen.ir import Graph, Op, Tensor, storage_perm
+from tinygen.passes.layout import storage_data
 from tinygen.reference.conv import ConvParams
 from tinygen.reference.fc import FcParams
-from tinygen.reference.pwconv import PwConvParams
+from tinygen.reference.pwconv import PwConvParams, pack_weights, with_pack
 from tinygen.reference.requant import Requant, choose_form, make_requant, quantize_multiplier
 
 
@@ -73,7 +74,9 @@ def _conv(graph: Graph, op: Op, mode: str) -> KernelCall:
         pw = PwConvParams(n=p.n, in_h=p.in_h, in_w=p.in_w, in_c=p.in_c, out_h=p.out_h,
                           out_w=p.out_w, out_c=p.out_c, stride_h=sh, stride_w=sw,
                           in_zp=p.in_zp, w_zp=p.w_zp, rq=rq)
-        return KernelCall("tg_pwconv", "pwconv", pw, args)
+        # weights and bias travel in the params' pack (flash), so the call takes x only
+        with_pack(pw, storage_data(w), b.data)
+        return KernelCall("tg_pwconv", "pwconv", pw, [x.name, y.name])
     return KernelCall("tg_dwconv" if depthwise else "tg_conv", "conv", p, args)
 
 
@@ -247,13 +250,16 @@ def choose_requant_forms(graph: Graph) -> Graph:
     """Pick each conv/fc requantization's C form for the layer's proven accumulator bound
     (a tighter bound than the int32 worst case may allow the pre-shifted fast form).
 
-    Needs: check_accumulators (op.attrs["acc_bound"]). Leaves: rq.form/chan/pre final.
+    Needs: check_accumulators (op.attrs["acc_bound"]). Leaves: rq.form/chan/pre final, and
+    tg_pwconv's pack rebuilt with them.
     """
     for op in graph.ops:
         call = op.attrs.get("call")
         rq = getattr(call.params, "rq", None) if call else None
         if isinstance(rq, Requant) and "acc_bound" in op.attrs:
             choose_form(rq, op.attrs["acc_bound"])
+            if isinstance(call.params, PwConvParams):
+                call.params.pack = pack_weights(call.params)
     return graph
 
 
