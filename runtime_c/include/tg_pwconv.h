@@ -4,13 +4,8 @@
  * input pixel (oy*stride_h, ox*stride_w); no padding, one group.
  * acc = bias[c] + sum (x - in_zp) * (w - w_zp[c]); with rq y is int8, without it the raw
  * int32 accumulator.
- * pack (built at compile time, tinygen.reference.pwconv.pack_weights; int32 words): one
- * record of 4 + 4*ceil(in_c/4) + 6 words per channel pair c0 = 2j, c1 = 2j + 1:
- *   bias[c0], bias[c1], bias[c0], bias[c1];
- *   per group of four inputs k..k+3, for c0 then c1: the int16 pairs (w'[k], w'[k+2]),
- *   (w'[k+1], w'[k+3]) with w' = w - w_zp (low half first; zero past in_c);
- *   mult, add, r of c0 and of c1 (rq TG_RQ_FAST; zeros otherwise).
- * A missing last c1 (odd out_c) has an all-zero record half and is never written.
+ * pack: weights, bias and requantization constants as the blocked matrix core reads them
+ * (tg_mat.h, with k_len = in_c; built by tinygen.reference.mat.pack_matrix).
  * Call (DEVELOPERS.md, "Kernel calls"): output rows [row0, row1) of the output image; 0,
  * out_h covers every image, a partial range needs n == 1. x_ring / y_ring: 0 = the whole
  * tensor is there, R > 0 = row r lives at (r mod R) * row_bytes (n == 1).
@@ -32,7 +27,7 @@ typedef struct {
     int32_t out_h, out_w, out_c;
     int32_t stride_h, stride_w;
     int32_t in_zp;                 /* int8 domain */
-    const int32_t *pack;           /* weights, bias, requant constants: see above */
+    const int32_t *pack;           /* weights, bias, requant constants (tg_mat.h) */
     const tg_requant_t *rq;        /* NULL: write int32 accumulators */
     int32_t x_ring, y_ring;        /* rows held: 0 = all */
 } tg_pwconv_params_t;

@@ -243,7 +243,7 @@ def test_pwconv_on_cortex_m_matches_reference(core, tmp_path):
     # The M4 build must really run the assembly routines (in_c 33+ takes the long one).
     dis = disassembly(elf)
     assert ("smlad" in dis) == (core is CORTEX_M4)
-    assert ("<tg_pw_dsp_long>:" in dis) == (core is CORTEX_M4)
+    assert ("<tg_mat_dsp_long>:" in dis) == (core is CORTEX_M4)
     dumps = run_qemu(elf, core)
     assert dumps.keys() == expected.keys()
     for tag, want in expected.items():

@@ -199,7 +199,8 @@ class TreeWriter:
 
 
 # Private headers a kernel family's C file includes besides its own header.
-PRIVATE_HEADERS = {"conv": ("tg_dot.h", "tg_window.h"), "pool": ("tg_window.h",)}
+PRIVATE_HEADERS = {"conv": ("tg_dot.h", "tg_mat.h", "tg_window.h"), "pwconv": ("tg_mat.h",),
+                   "pool": ("tg_window.h",)}
 
 
 def runtime_files(families: set[str]) -> list[tuple[str, Path]]:

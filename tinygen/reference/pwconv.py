@@ -14,10 +14,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from tinygen.reference.conv import ConvParams, conv
-from tinygen.reference.requant import FORM_FAST, Requant
+from tinygen.reference.mat import pack_matrix
+from tinygen.reference.requant import Requant
 
 PAIR = 2  # pixels the C takes per step (tg_pwconv.c)
-LANES = (0, 2, 1, 3)  # element order of a group of four in two int16-pair words (SXTB16's)
 
 
 @dataclass
@@ -59,38 +59,9 @@ def pwconv(x: np.ndarray, w: np.ndarray, bias: np.ndarray, p: PwConvParams) -> n
     return conv(x, np.asarray(w).reshape(p.out_c, 1, 1, p.in_c), bias, as_conv(p))
 
 
-def record_words(in_c: int) -> int:
-    """int32 words of one channel pair's record in the pack."""
-    return 4 + 4 * ((in_c + 3) // 4) + 6
-
-
 def pack_weights(p: PwConvParams) -> np.ndarray:
-    """The pack tg_pwconv reads (tg_pwconv.h), from p.w, p.bias, p.w_zp and p.rq.
-
-    One record per channel pair (c0 = 2j, c1 = 2j + 1; a missing last c1 is all zero):
-    bias[c0], bias[c1], bias[c0], bias[c1]; then per group of four input channels
-    k..k+3 the weights w - w_zp of c0 and of c1 as int16 pairs (k, k+2), (k+1, k+3), low
-    half first, zero past in_c; then mult, add, r of c0 and of c1 when rq is TG_RQ_FAST
-    (else zeros). Set p.rq's form first (choose_form): the pack copies its constants.
-    """
-    in_c, out_c = p.in_c, p.out_c
-    groups, pairs = (in_c + 3) // 4, (out_c + 1) // 2
-    w = np.zeros((2 * pairs, 4 * groups), dtype=np.int64)
-    w[:out_c, :in_c] = np.asarray(p.w, dtype=np.int64).reshape(out_c, in_c)
-    if p.w_zp is not None:
-        w[:out_c, :in_c] -= np.asarray(p.w_zp, dtype=np.int64).reshape(out_c, 1)
-    lanes = w.reshape(pairs, 2, groups, 4)[..., list(LANES)]
-    halves = lanes.transpose(0, 2, 1, 3).reshape(pairs, 4 * groups, 2)  # [pair][word][lo, hi]
-    words = (halves[..., 0] & 0xFFFF) | (halves[..., 1] << 16)
-    b = np.zeros(2 * pairs, dtype=np.int64)
-    b[:out_c] = np.asarray(p.bias, dtype=np.int64).reshape(out_c)
-    b = b.reshape(pairs, 2)
-    rq = np.zeros((2 * pairs, 3), dtype=np.int64)
-    if p.rq is not None and p.rq.form == FORM_FAST and p.rq.chan is not None:
-        rq[:out_c] = np.asarray(p.rq.chan, dtype=np.int64)
-    rec = np.concatenate([b, b, words, rq.reshape(pairs, 6)], axis=1)
-    assert rec.shape[1] == record_words(in_c)
-    return ((rec.reshape(-1) + 2**31) % 2**32 - 2**31).astype(np.int32)
+    """The pack tg_pwconv reads (tg_mat.h), from p.w, p.bias, p.w_zp and p.rq."""
+    return pack_matrix(np.asarray(p.w).reshape(p.out_c, p.in_c), p.bias, p.w_zp, p.rq)
 
 
 def with_pack(p: PwConvParams, w: np.ndarray, bias: np.ndarray) -> PwConvParams:
