@@ -77,8 +77,8 @@ def _elementwise_steps(p, *_):
 
 
 KERNELS: dict[str, Kernel] = {
-    "tg_conv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.conv), rows=True,
-                      scratch_bytes=ref_conv.conv_scratch_bytes),
+    "tg_conv": Kernel("conv", "tg_conv_params_t", lambda p, x: _conv_ref(ref_conv.conv)(
+        p, x, p.w, p.bias), rows=True, scratch_bytes=ref_conv.conv_scratch_bytes),
     "tg_pwconv": Kernel("pwconv", "tg_pwconv_params_t", _pwconv_ref, rows=True,
                         scratch_bytes=ref_pwconv.scratch_bytes,
                         overlap_margin=ref_pwconv.overlap_margin,

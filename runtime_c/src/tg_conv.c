@@ -2,12 +2,12 @@
  *
  * tg_conv works on two output pixels at a time. It gathers each pixel's receptive field
  * ("patch") in weight order (ky, kx, channel of the group) into the arena scratch, padding
- * as in_zp, and widens both pixels' patches once into a pair buffer of int16 x - in_zp
- * (tg_dot.h), so the zero point and the padding are dealt with once per pixel instead of once
- * per output channel. Each output channel is then a dot product of the patch with the
- * channel's weight row, two channels and both pixels at once (tg_dot_channels); a weight
- * zero point comes off at the end: sum x'(w - wz) = sum x'w - wz * sum x' (x' = x - in_zp).
- * The input row addresses of an output row are worked out once per row (rings wrap there).
+ * as in_zp, and widens both patches once into the pair buffer of the blocked matrix core
+ * (tg_mat.h), so the zero point and the padding are dealt with once per pixel instead of
+ * once per output channel. Each output channel is then a dot product of the patch with the
+ * channel's row of the compile-time pack (w - w_zp as int16), two channels and both pixels
+ * at once (tg_mat_channels: SMLAD assembly on DSP cores). The input row addresses of an
+ * output row are worked out once per row (rings wrap there).
  * tg_dwconv with multiplier 1 runs four channels at a time: one input word holds four
  * neighbouring channels, and a per-call table of int16 weights in [tap][channel] order
  * holds their weights side by side. The valid tap range is worked out once per pixel, so
@@ -27,7 +27,7 @@
  * twelve registers) run plain C loops on the same buffers.
  */
 #include "tg_conv.h"
-#include "tg_dot.h"
+#include "tg_mat.h"
 #include "tg_window.h"
 
 #include <string.h>
@@ -86,7 +86,8 @@ static inline uint32_t tg_conv_neg_pair(int32_t zp)
 
 /* Scratch of one call (tg_conv.h), 4-byte aligned: the byte offsets into x of the k_h input
  * rows of the output row being made (int32 each, not pointers: 4-byte alignment is all the
- * plan promises), the raw patch (k_len int8, rounded up to 4) and the pair buffer. */
+ * plan promises), the raw patches of both pixels (k_len int8 each, rounded up to 4) and the
+ * pair buffer. */
 static int32_t tg_conv_raw_offset(const tg_conv_params_t *p)
 {
     return 4 * p->k_h;
@@ -124,25 +125,24 @@ static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, const int
     }
 }
 
-void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
-             const int32_t *bias, void *y, void *scratch, int32_t row0, int32_t row1)
+void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
+             int32_t row0, int32_t row1)
 {
     const int32_t in_pg = p->in_c / p->groups, out_pg = p->out_c / p->groups;
-    const int32_t k_len = p->k_h * p->k_w * in_pg;
+    const int32_t k_len = p->k_h * p->k_w * in_pg, raw_len = (k_len + 3) & ~3;
     const int32_t e = p->rq != NULL ? 1 : 4;  /* output element bytes */
     const int32_t x_row = p->in_w * p->in_c, y_row = p->out_w * p->out_c * e;
     const int32_t images = row0 == 0 && row1 == p->out_h ? p->n : 1;
+    const int32_t group_words = ((out_pg + 1) >> 1) * tg_mat_record_words(k_len);
+    const int fast = tg_mat_fast(p->rq);
     int32_t *rows = (int32_t *)scratch;
-    int8_t *raw = (int8_t *)scratch + tg_conv_raw_offset(p);
-    int16_t *xw = (int16_t *)(void *)(raw + ((k_len + 3) & ~3));
-    tg_dot_job_t job;
+    int8_t *raw0 = (int8_t *)scratch + tg_conv_raw_offset(p), *raw1 = raw0 + raw_len;
+    int16_t *xw = (int16_t *)(void *)(raw1 + raw_len);
+    tg_mat_group_t grp;
     int32_t b, r, ky, ox, g;
-    job.bias = bias;
-    job.w_zp = p->w_zp;
-    job.rq = p->rq;
-    job.k_len = k_len;
-    job.len = k_len;
-    job.nc = out_pg;
+    grp.rq = p->rq;
+    grp.k_len = k_len;
+    grp.nc = out_pg;
     for (b = 0; b < images; ++b) {
         const int32_t xb = b * p->in_h * x_row;
         int8_t *yb = (int8_t *)y + b * p->out_h * y_row;
@@ -158,17 +158,16 @@ void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
                 const int32_t two = ox + 1 < p->out_w;
                 int8_t *y0 = yr + ox * p->out_c * e;
                 for (g = 0; g < p->groups; ++g) {
-                    int32_t xs0, xs1;
-                    tg_conv_gather(p, x, rows, ox, g, raw);
-                    xs0 = tg_dot_widen(raw, k_len, p->in_zp, xw, 0);
+                    int8_t *yg = y0 + g * out_pg * e;
+                    tg_conv_gather(p, x, rows, ox, g, raw0);
                     if (two) {
-                        tg_conv_gather(p, x, rows, ox + 1, g, raw);
+                        tg_conv_gather(p, x, rows, ox + 1, g, raw1);
                     }
-                    xs1 = tg_dot_widen(raw, k_len, p->in_zp, xw, 1);
-                    job.w = w + g * out_pg * k_len;
-                    job.c0 = g * out_pg;
-                    tg_dot_channels(&job, xw, xs0, xs1, y0 + g * out_pg * e,
-                                    two ? y0 + (p->out_c + g * out_pg) * e : NULL);
+                    tg_mat_widen2(raw0, two ? raw1 : raw0, k_len, p->in_zp, xw);
+                    grp.rec = p->pack + g * group_words;
+                    grp.c_base = g * out_pg;
+                    /* a lone last pixel writes its outputs twice (pair half 1 repeats it) */
+                    tg_mat_channels(&grp, xw, yg, two ? yg + p->out_c * e : yg, fast);
                 }
             }
         }

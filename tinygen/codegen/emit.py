@@ -199,7 +199,7 @@ class TreeWriter:
 
 
 # Private headers a kernel family's C file includes besides its own header.
-PRIVATE_HEADERS = {"conv": ("tg_dot.h", "tg_mat.h", "tg_window.h"), "pwconv": ("tg_mat.h",),
+PRIVATE_HEADERS = {"conv": ("tg_mat.h", "tg_window.h"), "pwconv": ("tg_mat.h",),
                    "pool": ("tg_window.h",)}
 
 

@@ -14,7 +14,7 @@ import numpy as np
 from tinygen.errors import TinygenError
 from tinygen.ir import Graph, Op, Tensor, storage_perm
 from tinygen.passes.layout import storage_data
-from tinygen.reference.conv import ConvParams
+from tinygen.reference.conv import ConvParams, conv_pack, with_conv_pack
 from tinygen.reference.fc import FcParams
 from tinygen.reference.pwconv import PwConvParams, pack_weights, with_pack
 from tinygen.reference.requant import Requant, choose_form, make_requant, quantize_multiplier
@@ -77,7 +77,10 @@ def _conv(graph: Graph, op: Op, mode: str) -> KernelCall:
         # weights and bias travel in the params' pack (flash), so the call takes x only
         with_pack(pw, storage_data(w), b.data)
         return KernelCall("tg_pwconv", "pwconv", pw, [x.name, y.name])
-    return KernelCall("tg_dwconv" if depthwise else "tg_conv", "conv", p, args)
+    if depthwise:
+        return KernelCall("tg_dwconv", "conv", p, args)
+    with_conv_pack(p, storage_data(w), b.data)  # tg_conv reads its weights from the pack
+    return KernelCall("tg_conv", "conv", p, [x.name, y.name])
 
 
 def _fc(graph: Graph, op: Op, mode: str) -> KernelCall:
@@ -260,6 +263,8 @@ def choose_requant_forms(graph: Graph) -> Graph:
             choose_form(rq, op.attrs["acc_bound"])
             if isinstance(call.params, PwConvParams):
                 call.params.pack = pack_weights(call.params)
+            elif call.func == "tg_conv":
+                call.params.pack = conv_pack(call.params)
     return graph
 
 
