@@ -129,6 +129,16 @@ static void tg_mat_put(const tg_requant_t *rq, void *y, int32_t c, int32_t rc, i
     }
 }
 
+/* y[c] = TG_RQ_FAST of acc (shifted left by pre) clamped to [lo, hi]: one clamp, since
+ * [lo, hi] lies inside the int8 range the form saturates to. */
+TG_INLINE void tg_mat_put_fast(void *y, int32_t c, const int32_t *k, int32_t acc, int32_t pre,
+                               int32_t lo, int32_t hi)
+{
+    const int32_t top = (int32_t)(((int64_t)(int32_t)((uint32_t)acc << pre) * k[0]) >> 32);
+    const int32_t v = (int32_t)((uint32_t)top + (uint32_t)k[1]) >> k[2];
+    ((int8_t *)y)[c] = (int8_t)(v < lo ? lo : (v > hi ? hi : v));
+}
+
 /* The channels of one group for the pixel pair in xw. */
 typedef struct {
     const int32_t *rec;      /* the group's first record */
@@ -145,6 +155,7 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
 {
     const int32_t groups = (grp->k_len + 3) >> 2, words = tg_mat_record_words(grp->k_len);
     const int32_t *rec = grp->rec + j0 * words;
+    const int fast_form = grp->rq != NULL && grp->rq->form == TG_RQ_FAST;
     int32_t j, g, l;
     for (j = j0; j < j1; ++j, rec += words) {
         const int32_t *wp = rec + 4;
@@ -153,13 +164,34 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
         int32_t a00 = rec[0], a01 = rec[1], a10 = rec[2], a11 = rec[3];
         for (g = 0; g < groups; ++g, xg += 8, wp += 4) {
             for (l = 0; l < 2; ++l) {  /* lane pair l of the group: c0's word l, c1's 2 + l */
-                const int32_t u0 = tg_mat_lo16(wp[l]), u1 = wp[l] >> 16;
-                const int32_t v0 = tg_mat_lo16(wp[2 + l]), v1 = wp[2 + l] >> 16;
-                a00 += xg[2 * l] * u0 + xg[2 * l + 1] * u1;
-                a10 += xg[4 + 2 * l] * u0 + xg[4 + 2 * l + 1] * u1;
-                a01 += xg[2 * l] * v0 + xg[2 * l + 1] * v1;
-                a11 += xg[4 + 2 * l] * v0 + xg[4 + 2 * l + 1] * v1;
+                const int32_t u = wp[l], v = wp[2 + l];
+                int32_t x0 = xg[2 * l], x1 = xg[4 + 2 * l], wu = tg_mat_lo16(u),
+                        wv = tg_mat_lo16(v);
+                /* lane by lane: few values live at once, so -Os keeps the sums in registers */
+                a00 += x0 * wu;
+                a10 += x1 * wu;
+                a01 += x0 * wv;
+                a11 += x1 * wv;
+                x0 = xg[2 * l + 1];
+                x1 = xg[4 + 2 * l + 1];
+                wu = u >> 16;
+                wv = v >> 16;
+                a00 += x0 * wu;
+                a10 += x1 * wu;
+                a01 += x0 * wv;
+                a11 += x1 * wv;
             }
+        }
+        if (fast_form) {  /* the record's constants, inline: no per-output dispatch */
+            const int32_t pre = grp->rq->pre, lo = grp->rq->act_min, hi = grp->rq->act_max;
+            const int32_t *e = rec + 4 + 4 * groups;  /* mult, add, r of c0, then of c1 */
+            tg_mat_put_fast(y0, c, e, a00, pre, lo, hi);
+            tg_mat_put_fast(y1, c, e, a10, pre, lo, hi);
+            if (c + 1 < grp->nc) {
+                tg_mat_put_fast(y0, c + 1, e + 3, a01, pre, lo, hi);
+                tg_mat_put_fast(y1, c + 1, e + 3, a11, pre, lo, hi);
+            }
+            continue;
         }
         tg_mat_put(grp->rq, y0, c, grp->c_base + c, a00);
         tg_mat_put(grp->rq, y1, c, grp->c_base + c, a10);
