@@ -8,7 +8,7 @@ DEMO_OUT := out/pump_vibration
 
 .PHONY: demo test lint bench fuzz toolchain tables clean
 
-$(VENV)/.installed: pyproject.toml
+$(VENV)/.installed: pyproject.toml setup.py
 	$(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install -q --upgrade pip
 	$(PY) -m pip install -q -e '.[test]'
@@ -34,8 +34,13 @@ toolchain:
 	  fi; \
 	fi
 
+# pytest-xdist (in the test extra) spreads the suite over PYTEST_JOBS workers (auto: one
+# per core); tests that share a costly module fixture carry an xdist_group mark. Without
+# xdist the suite runs in one process.
+PYTEST_JOBS ?= auto
 test: $(VENV)/.installed toolchain lint
-	$(PY) -m pytest
+	$(PY) -m pytest $$($(PY) -c "import xdist" 2>/dev/null \
+	    && echo "-n $(PYTEST_JOBS) --dist loadgroup")
 
 bench: $(VENV)/.installed
 	$(PY) -m tinygen.bench

@@ -53,19 +53,81 @@ class Net:
         b = self.rng.normal(0, 0.1, n).astype(np.float32)
         return self.op("Gemm", [x, self.const(w, "w"), self.const(b, "b")], transB=trans_b)
 
+    # -- layers as torch's dynamo exporter writes them (torch.onnx.export(..., dynamo=True),
+    # torch 2.13: opset 20 by default, 18 when an older one is asked for) ------------------
+    def linear(self, x, k, n, bias=True) -> str:
+        """nn.Linear on a [B, K] input: Gemm with the [N, K] weight and transB=1."""
+        w = self.rng.normal(0, 1 / np.sqrt(k), (n, k)).astype(np.float32)
+        ins = [x, self.const(w, "w")]
+        if bias:
+            ins.append(self.const(self.rng.normal(0, 0.1, n).astype(np.float32), "b"))
+        return self.op("Gemm", ins, alpha=1.0, beta=1.0, transA=0, transB=1)
+
+    def linear_matmul(self, x, k, n) -> str:
+        """nn.Linear on a [B, T, K] input: MatMul with the [K, N] weight, then Add bias."""
+        w = self.rng.normal(0, 1 / np.sqrt(k), (k, n)).astype(np.float32)
+        y = self.op("MatMul", [x, self.const(w, "w")])
+        return self.op("Add", [y, self.const(self.rng.normal(0, 0.1, n).astype(np.float32),
+                                                "b")])
+
+    def reduce_mean(self, x, axes, keepdims) -> str:
+        """x.mean(dims) / AdaptiveAvgPool2d(1): ReduceMean with the axes as an int64 input."""
+        return self.op("ReduceMean", [x, self.const(np.array(axes, np.int64), "axes")],
+                       keepdims=int(keepdims), noop_with_empty_axes=0)
+
+    def reshape(self, x, shape) -> str:
+        """flatten / view / reshape: Reshape with a constant shape and allowzero=1."""
+        return self.op("Reshape", [x, self.const(np.array(shape, np.int64), "shape")],
+                       allowzero=1)
+
+    def scalar(self, value) -> str:
+        return self.const(np.array(value, np.float32), "k")
+
+    def gelu(self, x, opset: int, approximate: str = "none") -> str:
+        """nn.GELU: one Gelu node from opset 20; before it the formula, erf or tanh form, with
+        the exporter's constants and operand order."""
+        if opset >= 20:
+            return self.op("Gelu", [x], approximate=approximate)
+        if approximate == "tanh":  # 0.5 x (1 + tanh(sqrt(2/pi) (x + 0.044715 x^3)))
+            cube = self.op("Mul", [self.scalar(0.044715), self.op("Pow", [x, self.scalar(3.0)])])
+            inner = self.op("Mul", [self.scalar(0.7978845608), self.op("Add", [x, cube])])
+            half = self.op("Mul", [self.scalar(0.5), self.op("Add", [self.op("Tanh", [inner]),
+                                                                     self.scalar(1.0)])])
+            return self.op("Mul", [x, half])
+        erf = self.op("Erf", [self.op("Div", [x, self.scalar(1.4142135381698608)])])
+        half = self.op("Mul", [self.scalar(0.5), self.op("Add", [erf, self.scalar(1.0)])])
+        return self.op("Mul", [x, half])
+
+    def silu(self, x) -> str:
+        """nn.SiLU: Sigmoid, then Mul with its own input."""
+        return self.op("Mul", [x, self.op("Sigmoid", [x])])
+
+    def softplus(self, x, beta: float = 1.0, threshold: float = 20.0) -> str:
+        """nn.Softplus: Softplus of beta*x over beta, and x itself above the threshold."""
+        bx = x if beta == 1.0 else self.op("Mul", [x, self.scalar(beta)])
+        sp = self.op("Softplus", [bx])
+        if beta != 1.0:
+            sp = self.op("Div", [sp, self.scalar(beta)])
+        above = self.op("Greater", [bx, self.scalar(threshold)])
+        return self.op("Where", [above, x, sp])
+
     def model(self, out: str, opset: int = 17) -> onnx.ModelProto:
         inp = helper.make_tensor_value_info("input", TensorProto.FLOAT, self.input_shape)
         outp = helper.make_tensor_value_info(out, TensorProto.FLOAT, None)
         g = helper.make_graph(self.nodes, self.name, [inp], [outp], self.inits)
         m = helper.make_model(g, opset_imports=[helper.make_opsetid("", opset)])
-        m.ir_version = 8
+        m.ir_version = 8 if opset <= 17 else 10  # what torch's exporter writes from 18 on
         return onnx.shape_inference.infer_shapes(m)
 
 
 def quantize(model: onnx.ModelProto, out_path: Path, fmt: str = "qdq",
              activations: str = "uint8", weights: str = "int8", per_channel: bool = True,
-             samples: int = 16, seed: int = 0, extra: dict | None = None) -> Path:
-    """quantize_static the float model into out_path; calibration data is random normal."""
+             samples: int = 16, seed: int = 0, extra: dict | None = None,
+             op_types: list[str] | None = None) -> Path:
+    """quantize_static the float model into out_path; calibration data is random normal.
+
+    op_types: quantize only these op types (onnxruntime's op_types_to_quantize); the others
+    stay float between DequantizeLinear and QuantizeLinear."""
     from onnxruntime.quantization import (
         CalibrationDataReader,
         QuantFormat,
@@ -91,5 +153,6 @@ def quantize(model: onnx.ModelProto, out_path: Path, fmt: str = "qdq",
         quantize_static(str(fp), str(out_path), Reader(),
                         quant_format=QuantFormat.QDQ if fmt == "qdq" else QuantFormat.QOperator,
                         activation_type=qt[activations], weight_type=qt[weights],
-                        per_channel=per_channel, extra_options=extra or {})
+                        per_channel=per_channel, extra_options=extra or {},
+                        op_types_to_quantize=op_types)
     return out_path

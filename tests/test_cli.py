@@ -120,3 +120,89 @@ def test_existing_outdir_is_kept_without_force(tmp_path):
     assert r.returncode == 2 and (out / "keep.txt").read_text() == "mine"
     r = tinygen("emit", PUMP, "-o", out, "--force")
     assert r.returncode == 0 and not (out / "keep.txt").exists()
+
+
+# -- output conventions and the documented keys (docs/cli.md) -----------------------------
+
+def documented_keys(verb: str) -> set[str]:
+    """The backquoted keys docs/cli.md lists for `verb` under "JSON keys"."""
+    import re
+    text = (ROOT / "docs" / "cli.md").read_text().split("## JSON keys", 1)[1]
+    text = text.split("\n## ", 1)[0]
+    m = re.search(rf"^- {verb}: (.*?)(?=^- |\Z)", text, re.S | re.M)
+    assert m, f"docs/cli.md lists no keys for {verb}"
+    return set(re.findall(r"`(\w+)`", m.group(1)))
+
+
+@pytest.mark.parametrize("verb,args", [
+    ("emit", ["-o", "OUT"]), ("plan", []), ("check", ["--samples", "2"]),
+    ("report", ["-o", "OUT/r.html"])])
+def test_every_verb_prints_one_documented_json_object(verb, args, tmp_path):
+    args = [str(tmp_path / a[4:]) if a.startswith("OUT") else a for a in args]
+    if verb == "report":
+        (tmp_path).mkdir(exist_ok=True)
+    r = tinygen(verb, PUMP, *args, "--json")
+    assert r.returncode == 0, r.stderr
+    info = json.loads(r.stdout)  # exactly one object: json.loads refuses anything after it
+    assert isinstance(info, dict) and r.stderr == ""
+    assert set(info) <= documented_keys(verb), set(info) - documented_keys(verb)
+
+
+def test_sanitize_key_is_documented():
+    assert "sanitizer_problem" in documented_keys("check")
+
+
+@pytest.mark.parametrize("verb,args", [("plan", []), ("check", ["--samples", "2"]),
+                                       ("emit", ["-o", "OUT"])])
+def test_results_go_to_stdout_and_nothing_to_stderr(verb, args, tmp_path):
+    args = [str(tmp_path / "out") if a == "OUT" else a for a in args]
+    r = tinygen(verb, PUMP, *args)
+    assert r.returncode == 0 and r.stderr == "", r.stderr
+    expected = {"plan": "arena plan for", "check": "C vs reference: bit-exact",
+                "emit": "wrote "}[verb]
+    assert expected in r.stdout
+
+
+@pytest.mark.parametrize("args", [["check", "missing.onnx"], ["plan", str(PUMP), "--align", "3"],
+                                  ["plan", str(PUMP), "--planner", "nope"]])
+def test_an_error_with_json_is_one_object_too(args):
+    r = tinygen(*args, "--json")
+    assert r.returncode == 2
+    err = json.loads(r.stdout)
+    assert set(err) <= documented_keys("error") and err["exit_code"] == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0] == f"tinygen: error: {err['error']}"
+
+
+@pytest.mark.parametrize("regions,message", [
+    (["fast=1K", "fast=2K"], "--region 'fast' given twice"),
+    (["fast=1K", "FAST=2K"], "'FAST' and 'fast' differ only in case"),
+    (["1bad=8K"], "region name '1bad' must be a C identifier"),
+    (["fast=8Q"], "'8Q' is not a size"),
+    (["fast"], "is not NAME=SIZE"),
+])
+def test_region_flags_say_what_is_wrong(regions, message):
+    r = tinygen("plan", PUMP, *[a for reg in regions for a in ("--region", reg)])
+    assert r.returncode == 2 and message in r.stderr, r.stderr
+    assert "fits in no region" not in r.stderr
+
+
+def test_region_names_keep_their_spelling(tmp_path):
+    r = tinygen("emit", PUMP, "-o", tmp_path / "out", "--region", "Fast=1K",
+                "--region", "Slow=64K")
+    assert r.returncode == 0, r.stderr
+    model_c = (tmp_path / "out" / "model.c").read_text()
+    assert "model_region_Slow" in model_c and "MODEL_REGION_SLOW_PLACEMENT" in model_c
+    assert "MODEL_REGION_SLOW_BYTES" in (tmp_path / "out" / "model.h").read_text()
+
+
+def test_flash_limit_is_the_flash_constants_and_shows_both_figures():
+    figures = json.loads(tinygen("plan", PUMP, "--json").stdout)
+    weights, constants = figures["weights_bytes"], figures["const_bytes"]
+    assert weights < constants
+    between = (weights + constants) // 2  # the weights fit, all constants do not
+    r = tinygen("plan", PUMP, "--flash-limit", str(between))
+    assert r.returncode == 2
+    assert f"constants need {constants} bytes of flash (weights {weights}), over " \
+           f"--flash-limit {between}" in r.stderr
+    assert tinygen("plan", PUMP, "--flash-limit", str(constants)).returncode == 0

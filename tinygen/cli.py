@@ -1,8 +1,8 @@
 """Command line: verbs and flags only; the work is done by the library.
 
 Exit codes: 0 success, 1 a check found a difference, 2 bad input or a limit exceeded (one
-line on stderr naming file, node, op and reason). With --json exactly one JSON object goes
-to stdout; human text goes to stderr.
+line on stderr naming file, node, op and reason). Results go to stdout, diagnostics to
+stderr. With --json stdout gets exactly one JSON object, an error's too (docs/cli.md).
 """
 from __future__ import annotations
 
@@ -28,10 +28,18 @@ def parse_size(text: str) -> int:
 
 
 def parse_region(text: str) -> tuple[str, int]:
+    """NAME=SIZE; the name keeps its spelling (compiler.check_regions says what it may be)."""
     name, sep, size = text.partition("=")
-    if not sep or not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,15}", name):
+    if not sep:
         raise argparse.ArgumentTypeError(f"--region '{text}' is not NAME=SIZE")
-    return name.lower(), parse_size(size)
+    from tinygen.compiler import region_name_problem
+    problem = region_name_problem(name)
+    if problem:
+        raise argparse.ArgumentTypeError(f"--region '{text}': {problem}")
+    try:
+        return name, parse_size(size)
+    except argparse.ArgumentTypeError as exc:
+        raise argparse.ArgumentTypeError(f"--region '{text}': {exc}") from None
 
 
 class _Parser(argparse.ArgumentParser):
@@ -93,7 +101,11 @@ def make_parser() -> argparse.ArgumentParser:
     e = sub.add_parser("emit", help="write the C tree (model.c/model.h + kernels)")
     e.add_argument("model")
     e.add_argument("-o", "--output", required=True, metavar="OUTDIR")
-    e.add_argument("--force", action="store_true", help="replace an existing OUTDIR")
+    into = e.add_mutually_exclusive_group()
+    into.add_argument("--force", action="store_true", help="replace an existing OUTDIR")
+    into.add_argument("--add", action="store_true",
+                      help="add this model to the models already in OUTDIR (one firmware, "
+                           "one set of kernels)")
     add_build_flags(e)
     c = sub.add_parser("check", help="compile on the host, compare with the reference")
     c.add_argument("model")
@@ -125,7 +137,13 @@ def make_parser() -> argparse.ArgumentParser:
 
 
 def _say(text: str) -> None:
+    """A diagnostic: stderr."""
     print(text, file=sys.stderr)
+
+
+def _show(text: str) -> None:
+    """A result the user reads: stdout (so `tinygen plan m.onnx | less` shows it)."""
+    print(text)
 
 
 def cmd_emit(args) -> int:
@@ -133,15 +151,20 @@ def cmd_emit(args) -> int:
     from tinygen.compiler import compile_model, summary
     c = compile_model(args.model, build_options(args))
     files = render_tree(c, flags_text(args))
-    names = write_tree(files, args.output, args.force)
+    if args.add:
+        from tinygen.codegen.emit import add_model_to_folder
+        files = add_model_to_folder(c, files, args.output)
+    names = write_tree(files, args.output, args.force or args.add)
     info = summary(c)
     info["files"] = names
+    info["models"] = sorted(n[:-2] for n in names if n.endswith(".h") and
+                            f"{n[:-2]}_sources.mk" in names)
     info["const_bytes"] = c.const_bytes
     if args.json:
         print(json.dumps(info))
     else:
-        _say(f"wrote {len(names)} files to {args.output}")
-        _say(format_summary(info, c))
+        _show(f"wrote {len(names)} files to {args.output}")
+        _show(format_summary(info, c))
     return 0
 
 
@@ -172,12 +195,12 @@ def cmd_check(args) -> int:
     else:
         verdict = "bit-exact" if res.bit_exact else \
             f"MISMATCH in {res.mismatched_elements} of {res.total_elements} elements"
-        _say(f"{args.model}: {res.samples} samples, C vs reference: {verdict}")
+        _show(f"{args.model}: {res.samples} samples, C vs reference: {verdict}")
         if getattr(res, "problem", None):
-            _say(f"sanitizer: {res.problem}")
+            _show(f"sanitizer: {res.problem}")
         if res.onnxruntime is not None:
             o = res.onnxruntime
-            _say(f"vs onnxruntime: max |diff| {o['max_abs_diff']} LSB, "
+            _show(f"vs onnxruntime: max |diff| {o['max_abs_diff']} LSB, "
                  f"{100 * o['equal_fraction']:.2f}% of elements equal")
     return 0 if res.bit_exact else 1
 
@@ -186,7 +209,7 @@ def cmd_plan(args) -> int:
     from tinygen.compiler import compile_model, summary
     from tinygen.report.plan_view import plan_svg, plan_table
     c = compile_model(args.model, build_options(args))
-    info = summary(c)
+    info = dict(summary(c), const_bytes=c.const_bytes)
     if args.svg:
         from pathlib import Path
         try:
@@ -196,7 +219,7 @@ def cmd_plan(args) -> int:
     if args.json:
         print(json.dumps(info))
     else:
-        _say(plan_table(c))
+        _show(plan_table(c))
     return 0
 
 
@@ -206,18 +229,23 @@ def cmd_emulate(args) -> int:
     if args.json:
         print(json.dumps(info))
     else:
-        _say(f"{args.model} on {info['cpu']}: bit_exact={info['bit_exact']}, flash "
+        _show(f"{args.model} on {info['cpu']}: bit_exact={info['bit_exact']}, flash "
              f"{info['flash_bytes']} B, RAM {info['ram_bytes']} B, stack {info['stack_bytes']} "
-             f"B, {info['instructions']} instructions for {info['macs']} MACs")
+             f"B, {info['instructions']} instructions for {info['macs']} MACs (all "
+             f"{info['samples']} samples: {info['instructions_min']}.."
+             f"{info['instructions_max']})")
     return 0 if info["bit_exact"] else 1
 
 
 def cmd_report(args) -> int:
-    from tinygen.compiler import compile_model
+    from tinygen.compiler import compile_model, summary
     from tinygen.report.html import write_report
     c = compile_model(args.model, build_options(args))
     write_report(c, args.output, args.budget_ram, args.budget_flash, flags_text(args))
-    _say(f"wrote {args.output}")
+    if args.json:
+        print(json.dumps(dict(summary(c), report=args.output, const_bytes=c.const_bytes)))
+    else:
+        _show(f"wrote {args.output}")
     return 0
 
 
@@ -225,23 +253,32 @@ VERBS = {"emit": cmd_emit, "check": cmd_check, "plan": cmd_plan, "emulate": cmd_
          "report": cmd_report}
 
 
+def _fail(kind: str, text: str, as_json: bool, **fields) -> int:
+    """An error: `tinygen: <kind>: <text>` on stderr; with --json also one object on
+    stdout, {"error": text, "exit_code": 2, ...}."""
+    print(f"tinygen: {kind}: {text}" if text else f"tinygen: {kind}", file=sys.stderr)
+    if as_json:
+        print(json.dumps({"error": text or kind, "exit_code": 2, **fields}))
+    return 2
+
+
 def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else list(argv)
+    as_json = "--json" in (argv[:argv.index("--")] if "--" in argv else argv)
     try:
         args = make_parser().parse_args(argv)
         return VERBS[args.verb](args)
     except TinygenError as exc:
-        print(f"tinygen: error: {exc.one_line()}", file=sys.stderr)
-        return 2
+        return _fail("error", exc.one_line(), as_json, reason=exc.reason, file=exc.file,
+                     node=exc.node, op=exc.op)
     except KeyboardInterrupt:
-        print("tinygen: interrupted", file=sys.stderr)
-        return 2
+        return _fail("interrupted", "", as_json)
     except Exception as exc:  # a bug in tinygen: still one line, still no output written
         if os.environ.get("TINYGEN_TRACEBACK"):
             raise
         text = " ".join(f"{type(exc).__name__}: {exc}".split())[:300]
-        print(f"tinygen: internal error: {text} (please report it; set TINYGEN_TRACEBACK=1 "
-              "for the traceback)", file=sys.stderr)
-        return 2
+        return _fail("internal error", f"{text} (please report it; set TINYGEN_TRACEBACK=1 "
+                     "for the traceback)", as_json, internal=True)
 
 
 if __name__ == "__main__":

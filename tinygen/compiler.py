@@ -5,6 +5,7 @@ made. The result carries every figure the CLI reports.
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -38,6 +39,17 @@ class BuildOptions:
     regions: list[tuple[str, int]] = field(default_factory=list)
     io: str = "arena"
     kernels: str = "auto"  # auto: the fastest path of each core; portable: plain C only
+
+
+def options_text(opts: BuildOptions) -> str:
+    """The build flags as the emitted files state them (header comment, 'Flags:')."""
+    parts = [f"--requant {opts.requant}", f"--planner {opts.planner}", f"--order {opts.order}",
+             f"--align {opts.align}", f"--io {opts.io}"]
+    if not opts.inplace:
+        parts.append("--no-inplace")
+    parts += [f"--region {n}={s}" for n, s in opts.regions]
+    parts += [f"--input-shape {s}" for s in opts.input_shapes]
+    return " ".join(parts)
 
 
 @dataclass
@@ -117,8 +129,33 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
     return c
 
 
+def region_name_problem(name: str) -> str:
+    """Why `name` cannot name a memory region ('' when it can). Names become C identifiers
+    (<prefix>_region_<name>, <PREFIX>_REGION_<NAME>_BYTES) with their spelling kept."""
+    if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]{0,15}", name):
+        return (f"region name '{name}' must be a C identifier: letters, digits and _, "
+                "not starting with a digit, at most 16")
+    return ""
+
+
+def check_regions(regions: list[tuple[str, int]]) -> None:
+    """Refuse region lists the plan cannot take: bad or repeated names (compared without
+    case, as the macros upper-case them)."""
+    seen: dict[str, str] = {}
+    for name, size in regions:
+        problem = region_name_problem(name)
+        if problem:
+            raise TinygenError(f"--region {name}={size}: {problem}")
+        if name.upper() in seen:
+            same = "given twice" if seen[name.upper()] == name else \
+                f"and '{seen[name.upper()]}' differ only in case (names are case-insensitive)"
+            raise TinygenError(f"--region '{name}' {same}: each region needs its own name")
+        seen[name.upper()] = name
+
+
 def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
     """Schedule, build buffers and place them; the plan is verified before it is returned."""
+    check_regions(opts.regions)
     if opts.align < 4 or opts.align & (opts.align - 1):
         raise TinygenError(f"--align {opts.align} must be a power of two >= 4")
     probe, owner = build_buffers(graph, list(range(len(graph.ops))), opts.inplace, opts.io)

@@ -303,11 +303,15 @@ def _model_footprint(images: dict[str, Path], info: ModelInfo,
 
 
 def _per_op(report: target.FirmwareReport) -> list[dict]:
-    ops = report.samples[0].ops if report.samples else {}
+    """Per op: instructions of sample 0 ("instructions") and of every sample."""
+    ops = sorted({op for s in report.samples for op in s.ops})
     rows = []
-    for op in sorted(ops):
-        calls, instructions = ops[op]
-        rows.append({"op": op, "instructions": instructions - calls * report.op_calibration})
+    for op in ops:
+        counts = []
+        for s in report.samples:
+            calls, instructions = s.ops.get(op, (0, 0))
+            counts.append(instructions - calls * report.op_calibration)
+        rows.append({"op": op, "instructions": counts[0], "instructions_per_sample": counts})
     return rows
 
 

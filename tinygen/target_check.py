@@ -20,9 +20,23 @@ from tinygen.errors import TinygenError
 from tinygen.runner import run_reference
 
 
+def call_rows(c: Compiled) -> list[dict]:
+    """Each emitted kernel call in run order (its TG_OP_BEGIN index): the C function, the
+    ONNX node name and op it came from, and its MACs."""
+    rows = []
+    for k in c.plan.order:
+        op = c.graph.ops[k]
+        if op.kind == "view":  # zero-copy: no call
+            continue
+        kernel = op.attrs["call"].func if "call" in op.attrs else "memcpy"
+        rows.append({"op": len(rows), "kernel": kernel, "node": op.name,
+                     "onnx_op": op.onnx_op, "macs": c.per_op_macs[k]})
+    return rows
+
+
 def call_macs(c: Compiled) -> list[int]:
     """MACs of each emitted kernel call, in the order of TG_OP_BEGIN indices."""
-    return [c.per_op_macs[k] for k in c.plan.order if c.graph.ops[k].kind != "view"]
+    return [row["macs"] for row in call_rows(c)]
 
 
 def emulate_compiled(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
@@ -44,15 +58,23 @@ def emulate_compiled(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
                                        for b, (n, dt) in zip(outs, specs, strict=True)])
         for r, y in zip(ref, got, strict=True):
             exact &= bool(np.array_equal(r.reshape(-1), y.reshape(-1).astype(r.dtype)))
-    macs = call_macs(c)
+    calls = call_rows(c)
     per_op = []
     for row in fig.get("per_op", []):
         i = int(row["op"])
-        per_op.append({"op": i, "instructions": int(row["instructions"]),
-                       "macs": macs[i] if i < len(macs) else 0})
+        call = calls[i] if i < len(calls) else {"kernel": "", "node": "", "onnx_op": "",
+                                                "macs": 0}
+        per_op.append({"op": i, "kernel": call["kernel"], "node": call["node"],
+                       "onnx_op": call["onnx_op"], "instructions": int(row["instructions"]),
+                       "instructions_per_sample": [int(v) for v in
+                                                   row.get("instructions_per_sample", [])],
+                       "macs": call["macs"]})
+    counts = [int(v) for v in fig["instructions_per_sample"]]
     return {"cpu": cpu, "bit_exact": exact, "flash_bytes": fig["flash_bytes"],
             "ram_bytes": fig["ram_bytes"], "stack_bytes": fig["stack_bytes"],
-            "instructions": fig["instructions"], "macs": c.macs, "per_op": per_op,
+            "instructions": fig["instructions"], "instructions_per_sample": counts,
+            "instructions_min": min(counts), "instructions_max": max(counts),
+            "macs": c.macs, "per_op": per_op,
             "samples": len(samples), "forbidden_symbols": fig.get("forbidden_symbols", []),
             "float_instructions": fig.get("float_instructions", [])}
 

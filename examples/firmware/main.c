@@ -1,14 +1,15 @@
 /* main.c - the smallest firmware that runs a tinygen model, step by step.
  *
  * Scenario: a 3-axis accelerometer on a pump housing. Fill one window of readings (in g),
- * quantize it into the model's input, run the model, read the class scores back.
+ * classify it, print the class and its score. classify() is the driver core shown in the
+ * README, written only from the emitted header, so it is right for int8 and uint8 models.
  * Build: make TREE=<emitted tree>   Run on QEMU: make run TREE=<emitted tree>
  * The tree must be emitted with the default --prefix model and --io arena.
  */
 #include <stddef.h>
 #include <stdint.h>
 
-#include "model.h"       /* from the emitted tree: sizes, scales and the entry points */
+#include "model.h"       /* from the emitted tree: types, sizes, scales and the entry points */
 
 void app_print(const char *text);   /* startup.c: console (semihosting here) */
 
@@ -41,41 +42,51 @@ static void app_print_int(const char *label, int32_t value, const char *unit)
     app_print(unit);
 }
 
+/* One window of real values (MODEL_INPUT_0_SIZE, storage order) in, the class index out. */
+int classify(const float *window)
+{
+    model_input_0_t *in = model_input(NULL, 0);           /* input 0, inside the arena */
+    const model_output_0_t *score = model_output(NULL, 0);
+    uint32_t i, best = 0u;
+
+    for (i = 0u; i < MODEL_INPUT_0_SIZE; ++i) {
+        in[i] = model_quantize_input_0(window[i]);
+    }
+    if (model_run(NULL, NULL, NULL) != 0) {               /* NULL: the arena in model.c */
+        return -1;
+    }
+    for (i = 1u; i < MODEL_OUTPUT_0_SIZE; ++i) {          /* quantized order = real order */
+        if (score[i] > score[best]) {
+            best = i;
+        }
+    }
+    return (int)best;
+}
+
 int main(void)
 {
-    float window[MODEL_INPUT_0_SIZE];
-    float scores[MODEL_OUTPUT_0_SIZE];
+    static float window[MODEL_INPUT_0_SIZE];
+    const model_output_0_t *score = model_output(NULL, 0);
     uint32_t i;
-    uint32_t best = 0u;
-    int status;
+    int best;
 
-    /* 1. One window of sensor readings, as real numbers. */
+    /* 1. One window of sensor readings, as real numbers (storage order). */
     for (i = 0u; i < MODEL_INPUT_0_SIZE; ++i) {
         window[i] = app_sensor_reading(i);
     }
 
-    /* 2. Quantize into the input tensor. With --io arena the input lives inside the arena;
-     *    model_input(NULL, 0) points at it (NULL = the model's own static arena, which the
-     *    Makefile places in section .arena). Per element, as ONNX QuantizeLinear does:
-     *    q = clamp(round_half_even(x / MODEL_INPUT_0_SCALE) + MODEL_INPUT_0_ZERO_POINT). */
-    model_quantize_input(0, window, model_input(NULL, 0), MODEL_INPUT_0_SIZE);
-
-    /* 3. Run. No heap: all the memory it touches is the arena and a little stack. */
-    status = model_run(NULL, NULL, NULL);
-    if (status != 0) {
-        app_print_int("model_run failed: ", status, "\n");
+    /* 2. Quantize, run, pick the class: the model's static arena (NULL) is placed in
+     *    section .arena by the Makefile; no heap, only the arena and a little stack. */
+    best = classify(window);
+    if (best < 0) {
+        app_print("model_run failed: misaligned arena\n");
         return 1;
     }
 
-    /* 4. Read the output back as real numbers: (q - zero_point) * scale. */
-    model_dequantize_output(0, model_output(NULL, 0), scores, MODEL_OUTPUT_0_SIZE);
-    for (i = 1u; i < MODEL_OUTPUT_0_SIZE; ++i) {
-        if (scores[i] > scores[best]) {
-            best = i;
-        }
-    }
+    /* 3. The winning score as a real number: (q - zero_point) * scale. */
     app_print_int("arena: ", (int32_t)MODEL_ARENA_BYTES, " bytes\n");
     app_print_int("class: ", (int32_t)best, "\n");
-    app_print_int("score: ", (int32_t)(scores[best] * 1000.0f), " milli\n");
+    app_print_int("score: ", (int32_t)(model_dequantize_output_0(score[best]) * 1000.0f),
+                  " milli\n");
     return 0;
 }

@@ -155,8 +155,8 @@ def test_plan_verb_writes_the_same_svg(tmp_path, capsys, pump):
     out = tmp_path / "plan.svg"
     assert cli.main(["plan", str(PUMP), "--svg", str(out)]) == 0
     assert out.read_text() == plan_svg(pump)
-    err = capsys.readouterr().err
-    assert table_total(err, "arena") == summary(pump)["arena_bytes"]
+    shown = capsys.readouterr().out  # the table is a result: stdout
+    assert table_total(shown, "arena") == summary(pump)["arena_bytes"]
 
 
 # -- random graphs: the views hold for any plan, not only the examples --------------------

@@ -202,8 +202,9 @@ def _symbolic_model() -> onnx.ModelProto:
 
 def _unsupported_op() -> onnx.ModelProto:
     nodes, inits, ins, outs = qdq_parts()
-    nodes = [helper.make_node("Erf", ["rd"], ["p"], name="erf1") if n.name == "pool1" else n
-             for n in nodes]
+    # Hardmax: not per-element (so no table either) and not an op tinygen lowers
+    nodes = [helper.make_node("Hardmax", ["rd"], ["p"], name="hardmax1") if n.name == "pool1"
+             else n for n in nodes]
     nodes = [helper.make_node("Flatten", ["p"], ["f"], name="flat1", axis=1)
              if n.name == "flat1" else n for n in nodes]
     return build(nodes, inits, ins, outs)
@@ -411,8 +412,8 @@ def cases() -> list[Case]:
              args=["--input-shape", "x=1x2"]),
         Case("input_shape_bad_syntax", save(_symbolic_model()), "--input-shape",
              args=["--input-shape", "x=1xtwox6x6"]),
-        Case("unsupported_op", save(_unsupported_op()), "op Erf is not supported",
-             node="erf1", op="Erf"),
+        Case("unsupported_op", save(_unsupported_op()), "op Hardmax is not supported",
+             node="hardmax1", op="Hardmax"),
         Case("custom_domain", save(_custom_domain()), "domain 'com.example'", node="frob1",
              op="Frobnicate"),
         Case("scale_zero", save_parts(replace_init(qdq(), "s_c", _f32(0.0))),

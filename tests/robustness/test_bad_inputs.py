@@ -12,6 +12,7 @@ children forked from this process, which call the same `tinygen.cli.main` that
 from __future__ import annotations
 
 import io
+import json
 import os
 import re
 import subprocess
@@ -176,7 +177,11 @@ def test_other_verbs_and_json_report_bad_input_the_same_way(tmp_path):
     for args in (["check", str(bad), "--samples", "2"], ["plan", str(bad), "--json"],
                  ["emit", str(bad), "-o", str(tmp_path / "o"), "--json"]):
         r = forked(*args)
-        assert r.returncode == 2 and r.stdout == "", (args, r.stdout)
         lines = r.stderr.splitlines()
-        assert len(lines) == 1 and lines[0].startswith(f"tinygen: error: {bad}: "), lines
+        assert r.returncode == 2 and len(lines) == 1, (args, r.stderr)
+        assert lines[0].startswith(f"tinygen: error: {bad}: "), lines
+        if "--json" in args:  # stdout: one JSON object saying the same (docs/cli.md)
+            assert json.loads(r.stdout)["error"] == lines[0][len("tinygen: error: "):]
+        else:
+            assert r.stdout == "", (args, r.stdout)
     assert not (tmp_path / "o").exists()

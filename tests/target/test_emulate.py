@@ -221,4 +221,5 @@ def test_per_op_count_matches_the_disassembly(opt, tmp_path):
     between = run[begin + 1:end]
     assert not any(r.startswith(("b.", "bne", "beq", "cb")) for r in between)
     loop = _disassembly(tmp_path / "per_op.elf", "tg_loop")
-    assert fig["per_op"] == [{"op": 0, "instructions": len(between) + len(loop) + 2 * (n - 1)}]
+    count = len(between) + len(loop) + 2 * (n - 1)
+    assert fig["per_op"] == [{"op": 0, "instructions": count, "instructions_per_sample": [count]}]

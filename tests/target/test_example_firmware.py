@@ -1,16 +1,23 @@
-"""examples/firmware builds against a tree given by TREE= and runs under QEMU."""
+"""examples/firmware builds against an emitted tree given by TREE= and runs under QEMU; its
+classify() is the README's driver core, checked against the numpy reference for the demo's
+sensor window on a uint8 and an int8 model."""
 import re
 import shutil
 import subprocess
 from pathlib import Path
 
+import numpy as np
 import pytest
+
+from tinygen.codegen.emit import render_tree, write_tree
+from tinygen.compiler import BuildOptions, compile_model, storage_inputs
+from tinygen.ir import storage_perm
+from tinygen.runner import run_reference
 
 pytestmark = pytest.mark.target
 
 ROOT = Path(__file__).resolve().parents[2]
 EXAMPLE = ROOT / "examples" / "firmware"
-FIXTURE = Path(__file__).resolve().parent / "fixtures" / "addone"
 
 
 def _make(tmp_path: Path, tree: Path, cpu: str) -> subprocess.CompletedProcess:
@@ -18,36 +25,50 @@ def _make(tmp_path: Path, tree: Path, cpu: str) -> subprocess.CompletedProcess:
         pytest.skip("make not installed")
     return subprocess.run(["make", "-s", "-C", str(EXAMPLE), f"TREE={tree}", f"CPU={cpu}",
                            f"BUILD={tmp_path / 'build'}", "run"],
-                          capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL)
+                          capture_output=True, text=True, timeout=120, stdin=subprocess.DEVNULL)
 
 
-def _expected_class(window_scale: float = 0.05) -> tuple[int, int]:
-    """What the fixture must answer for the demo's sensor window, computed here: the
-    readings of main.c's app_sensor_reading, quantized as ONNX QuantizeLinear does
-    (round half to even, saturate), through the fixture's documented function."""
-    period = 40
-    scores = []
-    for i in range(16):
-        phase = (i // 3 + 10 * (i % 3)) % period
-        tri = phase if phase < period // 2 else period - phase
-        x = 0.04 * tri - 0.4
-        q = max(-128, min(127, round(x / window_scale)))   # Python rounds half to even
-        t = ((q + 1 + 128) & 0xFF) - 128
-        y = (t * 37 + 11) & 0xFF
-        scores.append(y - 256 if y > 127 else y)
-    best = max(range(16), key=lambda k: (scores[k], -k))
-    return best, int(scores[best] * 0.0078125 * 1000)
+def _expected(c) -> tuple[int, int]:
+    """Class and milli-score main.c must print: its app_sensor_reading window (float32, as
+    the C computes it with -ffp-contract=off), through the numpy reference."""
+    g = c.graph
+    t = g.tensors[g.inputs[0].name]
+    i = np.arange(t.size)
+    phase = (i // 3 + 10 * (i % 3)) % 40
+    tri = np.where(phase < 20, phase, 40 - phase).astype(np.float32)
+    window = np.float32(0.04) * tri - np.float32(0.4)          # storage order
+    perm = storage_perm(len(t.shape), t.layout)
+    onnx_layout = np.transpose(window.reshape(t.storage_shape()), np.argsort(perm))
+    ref = run_reference(g, storage_inputs(g, [onnx_layout]), c.plan.order)[0].reshape(-1)
+    best = int(np.argmax(ref))
+    io = g.outputs[0]
+    zp = io.quant.scalar_zp()  # int8 domain, like ref
+    real = np.float32(int(ref[best]) - zp) * np.float32(io.quant.scalar_scale())
+    return best, int(real * np.float32(1000.0))
 
 
-@pytest.mark.parametrize("cpu", ["cortex-m3", "cortex-m4"])
-def test_demo_runs_on_the_fixture_tree(cpu, tmp_path):
-    proc = _make(tmp_path, FIXTURE, cpu)
+@pytest.mark.parametrize("model,cpu", [("pump_vibration", "cortex-m3"),
+                                       ("pump_vibration", "cortex-m4"),
+                                       ("door_camera", "cortex-m4")])
+def test_demo_runs_on_an_emitted_tree(model, cpu, tmp_path):
+    c = compile_model(str(ROOT / "examples" / model / f"{model}.onnx"), BuildOptions())
+    tree = tmp_path / "tree"
+    write_tree(render_tree(c, "test"), str(tree), force=False)
+    proc = _make(tmp_path, tree, cpu)
     assert proc.returncode == 0, proc.stderr
-    best, milli = _expected_class()
-    assert "arena: 48 bytes" in proc.stdout
+    best, milli = _expected(c)
+    assert f"arena: {c.plan.arena_bytes} bytes\n" in proc.stdout
     assert f"class: {best}\n" in proc.stdout
     assert f"score: {milli} milli" in proc.stdout
-    # The model's static arena (48 bytes, from model.o) sits in the .arena section.
+    # The model's static arena (from model.o) sits in the .arena section.
     demo_map = (tmp_path / "build" / "demo.map").read_text()
     arena_part = demo_map.split("\n.arena", 1)[1].split("\n.bss", 1)[0]
-    assert re.search(r"\.arena\s+0x[0-9a-f]+\s+0x30 \S*model\.o", arena_part)
+    assert re.search(rf"\.arena\s+0x[0-9a-f]+\s+0x{c.plan.arena_bytes:x} \S*model\.o",
+                     arena_part)
+
+
+def test_main_c_is_built_around_the_readme_driver():
+    readme = (ROOT / "README.md").read_text()
+    core = readme.split("<!-- firmware-driver:start -->\n```c\n")[1].split("```")[0]
+    core = core.split('#include "model.h"\n\n', 1)[1]
+    assert core in (EXAMPLE / "main.c").read_text()

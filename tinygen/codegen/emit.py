@@ -26,18 +26,25 @@ from tinygen.codegen.cfmt import (
 )
 from tinygen.compiler import Compiled
 from tinygen.errors import TinygenError
+from tinygen.ir import storage_perm
 from tinygen.kernels import KERNELS
 from tinygen.passes.layout import storage_data
 from tinygen.plan.lifetimes import scratch_name
+from tinygen.resources import runtime_dir, templates_dir
 
-RUNTIME = Path(__file__).resolve().parent.parent.parent / "runtime_c"
-TEMPLATES = Path(__file__).resolve().parent / "templates"
+RUNTIME = runtime_dir()
+TEMPLATES = templates_dir()
 
 
 def _env() -> jinja2.Environment:
     return jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
                               trim_blocks=True, lstrip_blocks=True,
                               undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
+
+
+# Value range of each I/O buffer type, as C constant expressions.
+IO_RANGES = {"int8": ("(-128)", "127"), "uint8": ("0", "255"),
+             "int32": ("(-2147483647 - 1)", "2147483647")}
 
 
 class TreeWriter:
@@ -129,27 +136,37 @@ class TreeWriter:
         return [f"{call.func}(&{pname}, {', '.join(args)});"]
 
     def io_entries(self, ios, is_input: bool) -> list[dict]:
+        """What the header says about each input/output: C type, range, storage dims."""
         out = []
-        for io in ios:
+        kind = "input" if is_input else "output"
+        for index, io in enumerate(ios):
             t = self.g.tensors[io.name]
             buf, _ = self.plan.offset_of(io.name)
-            dims = t.storage_shape()
+            dims = list(t.storage_shape())
             q = io.quant
+            lo, hi = IO_RANGES[io.buffer_dtype]
             entry = {
+                "index": index,
                 "comment": c_comment_text(io.onnx_name, 60),
                 "ctype": C_TYPES[io.buffer_dtype],
+                "tname": f"{self.P}_{kind}_{index}_t",
+                "macro": f"{self.G}_{kind.upper()}_{index}",
+                "elem": io.buffer_dtype.upper(),
+                "lo": lo, "hi": hi,
+                "dims": dims, "rank": len(dims),
+                "onnx_axes": list(storage_perm(len(t.shape), t.layout)),
+                "onnx_dims_comment": "x".join(map(str, t.shape)),
                 "dims_comment": "x".join(map(str, dims)),
                 "size": t.size,
                 "bytes": t.nbytes,
                 "quant": q is not None and io.buffer_dtype != "int32",
+                "scale": "0.0f", "zp": "0",
                 "arena_expr": None if buf.external else f"(void *){self.ptr(io.name)}",
             }
             if entry["quant"]:
                 zp = q.scalar_zp() + (128 if io.buffer_dtype == "uint8" else 0)
                 entry["scale"] = c_float(q.scalar_scale())
                 entry["zp"] = str(zp)
-                entry["lo"], entry["hi"] = (0, 255) if io.buffer_dtype == "uint8" else \
-                    (-128, 127)
             out.append(entry)
         return out
 
@@ -191,11 +208,24 @@ class TreeWriter:
             "inputs": self.io_entries(g.inputs, True),
             "outputs": self.io_entries(g.outputs, False),
             "io_mode_comment": "--io " + c.options.io,
+            "io_external": c.options.io == "external",
+            "max_rank": max([len(self.g.tensors[io.name].shape)
+                             for io in [*g.inputs, *g.outputs]] + [1]),
             "decls": self.pw.decls, "calls": calls, "headers": headers,
             "prologue": pro, "epilogue": epi, "flips": bool(pro or epi),
             "extra_regions": extra, "float_mode": c.options.requant == "float",
-            "portable_kernels": c.options.kernels == "portable",
+            "needs": config_needs(c),
         }
+
+
+def config_needs(c: Compiled) -> list[str]:
+    """The tg_config.h switches this model's kernels must have on (DEVELOPERS.md, "Kernel
+    configuration"): <prefix>.c refuses to compile against kernels configured without them,
+    and a folder shared by several models turns on every switch one of them needs."""
+    needs = ["TG_WITH_FLOAT_REQUANT"] if c.options.requant == "float" else []
+    if c.options.kernels == "portable":  # same outputs, plain C: safe for every model
+        needs.append("TG_KERNELS_PORTABLE")
+    return needs
 
 
 # Private headers a kernel family's C file includes besides its own header.
@@ -214,6 +244,30 @@ def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
     return files
 
 
+def kernel_files(families) -> dict[str, str]:
+    """{name: text} of the runtime files the kernel families need (byte copies)."""
+    return {name: src.read_text() for name, src in runtime_files(set(families))}
+
+
+def runtime_file_names() -> set[str]:
+    """Every runtime file name a tree may hold."""
+    return {name for name, _ in runtime_files({k.family for k in KERNELS.values()})}
+
+
+def render_shared(models, needs: list[str]) -> dict[str, str]:
+    """tg_config.h for kernels serving `models` (codegen.folder.FolderModel: prefix,
+    families, needs) and each model's build snippets, which list its .c and its kernels."""
+    env = _env()
+    files = {"tg_config.h": env.get_template("tg_config.h.j2").render(
+        needs=needs, models=[(m.prefix, m.requant) for m in models])}
+    for m in models:
+        sources = sorted([f"{m.prefix}.c", *(f"tg_{f}.c" for f in m.families)])
+        ctx = {"P": m.prefix, "G": m.prefix.upper(), "sources": sources, "needs": needs}
+        files[f"{m.prefix}_sources.cmake"] = env.get_template("sources.cmake.j2").render(**ctx)
+        files[f"{m.prefix}_sources.mk"] = env.get_template("sources.mk.j2").render(**ctx)
+    return files
+
+
 def render_tree(c: Compiled, flags: str) -> dict[str, str]:
     """All files of the tree as {name: text}, deterministic for the same input."""
     try:
@@ -227,15 +281,19 @@ def render_tree(c: Compiled, flags: str) -> dict[str, str]:
     files: dict[str, str] = {}
     files[f"{w.P}.c"] = env.get_template("model.c.j2").render(**ctx)
     files[f"{w.P}.h"] = env.get_template("model.h.j2").render(**ctx)
-    files["tg_config.h"] = env.get_template("tg_config.h.j2").render(**ctx)
-    for name, src in runtime_files(w.families):
-        files[name] = src.read_text()
-    sources = sorted(n for n in files if n.endswith(".c"))
-    sctx = dict(ctx, sources=sources)
-    files[f"{w.P}_sources.cmake"] = env.get_template("sources.cmake.j2").render(**sctx)
-    files[f"{w.P}_sources.mk"] = env.get_template("sources.mk.j2").render(**sctx)
+    files.update(kernel_files(w.families))
+    from tinygen.codegen.folder import FolderModel
+    files.update(render_shared([FolderModel(w.P, sorted(w.families), ctx["needs"])],
+                               ctx["needs"]))
     c.const_bytes = w.pw.const_bytes
     return files
+
+
+def add_model_to_folder(c: Compiled, files: dict[str, str], out_dir: str) -> dict[str, str]:
+    """emit --add: the model's rendered tree merged with the models already in out_dir."""
+    from tinygen.codegen.folder import add_to_folder
+    families = sorted(n[3:-2] for n in files if n.startswith("tg_") and n.endswith(".c"))
+    return add_to_folder(files, c.options.prefix, families, config_needs(c), out_dir)
 
 
 def write_tree(files: dict[str, str], out_dir: str, force: bool) -> list[str]:

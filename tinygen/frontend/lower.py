@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from tinygen.errors import TinygenError
-from tinygen.frontend import qdq, qop
+from tinygen.frontend import pointwise, qdq, qop
 from tinygen.frontend.build import Builder
 from tinygen.frontend.onnx_loader import ModelView, load_model
 from tinygen.frontend.ops import emit_view, same_quant
@@ -72,6 +72,9 @@ class Lowering:
         self.opset = view.opset.get("", 17)
         self.int_inputs: set[str] = set()  # graph inputs that are int8/uint8 already
         self.input_tensors: dict[str, Tensor] = {}  # graph input -> its IR tensor
+        # float per-element subgraphs that become one table each (pointwise.py)
+        self.regions = pointwise.find_regions(view)
+        self.region_of = {id(n): r for r in self.regions.values() for n in r.nodes}
 
     # -- helpers used by the handler modules ------------------------------------------
     def error(self, reason: str) -> TinygenError:
@@ -158,7 +161,11 @@ class Lowering:
         op = node.op_type
         if node.domain not in ("", "ai.onnx", "com.microsoft"):
             raise self.error(f"op domain '{node.domain}' is not supported")
-        if op == "QuantizeLinear":
+        region = self.region_of.get(id(node))
+        if region is not None:  # inner nodes make nothing; the last one makes the table
+            if node.output[0] == region.result:
+                pointwise.lower_region(self, region)
+        elif op == "QuantizeLinear":
             qdq.lower_quantize(self, node)
         elif op == "DequantizeLinear":
             qdq.lower_dequantize(self, node)

@@ -143,8 +143,10 @@ def emit_binary(b: Builder, kind: str, out_name: str, a: Tensor, c: Tensor,
 
 
 def emit_pool(b: Builder, kind: str, out_name: str, x: Tensor, y_q: QuantParams,
-              attrs: dict) -> Tensor:
-    """MaxPool / AveragePool / GlobalAveragePool (attrs global=True)."""
+              attrs: dict, float_order: str = "qlinear") -> Tensor:
+    """MaxPool / AveragePool / GlobalAveragePool (attrs global=True). float_order: whose
+    float average avgpool reproduces in float mode, "qlinear" (onnxruntime's QLinear
+    pooling) or "onnx" (the float graph DequantizeLinear -> pooling -> QuantizeLinear)."""
     _need_per_tensor(b, x, "input")
     if len(x.shape) not in (3, 4):
         raise b.error(f"pooling over rank {len(x.shape)} is not supported (1-D or 2-D)")
@@ -167,6 +169,8 @@ def emit_pool(b: Builder, kind: str, out_name: str, x: Tensor, y_q: QuantParams,
     y = _out(b, out_name, shape, y_q)
     b.add_op(kind, [x.name], [y.name], act=(INT8_MIN, INT8_MAX),
              count_include_pad=include_pad, **geo)
+    if kind == "avgpool":
+        b.graph.ops[-1].attrs["float_order"] = float_order
     return y
 
 
@@ -265,3 +269,112 @@ def resolve_reshape(b: Builder, in_shape, target, allowzero: int = 0) -> tuple[i
     if int(np.prod(out, dtype=np.int64)) != total:
         raise b.error(f"cannot reshape {list(in_shape)} to {target}")
     return tuple(out)
+
+
+def reduce_axes(b: Builder, rank: int, axes, noop_with_empty_axes: int) -> list[int] | None:
+    """ONNX ReduceMean axes as sorted non-negative indices; None: the op is an identity."""
+    axes = [int(a) for a in (axes if axes is not None else [])]
+    if not axes:
+        return None if noop_with_empty_axes else list(range(rank))
+    if any(not -rank <= a < rank for a in axes):
+        raise b.error(f"ReduceMean axes {axes} are out of range for rank {rank}")
+    norm = sorted({a % rank for a in axes})
+    if len(norm) != len(axes):
+        raise b.error(f"ReduceMean axes {axes} repeat an axis")
+    return norm
+
+
+def emit_reduce_mean(b: Builder, out_name: str, x: Tensor, y_q: QuantParams, axes,
+                     keepdims: bool) -> Tensor:
+    """ReduceMean as average pooling: an exact integer sum and one rounded division (float
+    mode: the ONNX definition's order, DequantizeLinear -> ReduceMean -> QuantizeLinear).
+
+    Axes of size 1 change only the shape; the others must be consecutive (ONNX order, size-1
+    axes between them do not count). Spatial axes of a [N, C, *spatial] tensor kept
+    channels-last are the pooling window; otherwise x is viewed as [outer, 1, averaged,
+    inner] (the same bytes in ONNX order) and pooled over the 'rows'.
+    """
+    _need_per_tensor(b, x, "input")
+    rank = len(x.shape)
+    out_shape = [1 if i in axes else d for i, d in enumerate(x.shape)]
+    if not keepdims:
+        out_shape = [d for i, d in enumerate(x.shape) if i not in axes]
+    moving = [a for a in axes if x.shape[a] != 1]
+    if not moving:  # nothing to average: a requantization at most
+        return emit_view(b, out_name, emit_lut(b, out_name + "_mean", x, y_q, "identity"),
+                         out_shape)
+    if any(moving[0] < i < moving[-1] and x.shape[i] != 1 and i not in moving
+           for i in range(rank)):
+        raise b.error(f"ReduceMean over axes {axes} of shape {list(x.shape)} is not "
+                      "supported: the averaged axes must be consecutive")
+    if rank in (3, 4) and moving[0] >= 2 and _stored_channels_last(b, x):
+        kernel = [x.shape[i] if i in moving else 1 for i in range(2, rank)]
+        pooled = emit_pool(b, "avgpool", out_name + "_mean", x, y_q,
+                           {"kernel_shape": kernel}, float_order="onnx")
+        return emit_view(b, out_name, pooled, out_shape)
+    outer = int(np.prod(x.shape[:moving[0]], dtype=np.int64))
+    count = int(np.prod([x.shape[a] for a in moving], dtype=np.int64))
+    inner = int(np.prod(x.shape[moving[-1] + 1:], dtype=np.int64))
+    rows = emit_view(b, out_name + "_rows", x, (outer, 1, count, inner))
+    pooled = emit_pool(b, "avgpool", out_name + "_mean", rows, y_q,
+                       {"kernel_shape": [count, 1]}, float_order="onnx")
+    return emit_view(b, out_name, pooled, out_shape)
+
+
+def _stored_channels_last(b: Builder, x: Tensor, depth: int = 32) -> bool:
+    """Whether the layout pass will most likely keep x channels-last (it decides; this only
+    picks the lowering that needs no copy): spatial ops write channels-last, ops that keep
+    their input's order pass it on, everything else writes ONNX order."""
+    follow = {"lut", "copy", "add", "mul", "pad", "concat"}
+    name = x.name
+    for _ in range(depth):
+        prod = b.graph.producer(name)
+        if prod is None:
+            return len(b.graph.tensors[name].shape) >= 3
+        if prod.kind in ("conv", "maxpool", "avgpool"):
+            return True
+        if prod.kind not in follow:
+            return False
+        acts = [i for i in prod.inputs if not b.graph.tensors[i].is_const]
+        if not acts:
+            return False
+        name = acts[0]
+    return False
+
+
+def emit_batch_norm(b: Builder, out_name: str, x: Tensor, params: list[np.ndarray],
+                    epsilon: float, y_q: QuantParams, act: tuple[int, int]) -> Tensor:
+    """BatchNormalization (inference) as a depthwise 1x1 conv: y = a[c] x + d[c] with
+    a = scale / sqrt(var + epsilon) and d = B - mean a (the ONNX formula, in float64).
+
+    Each a[c] is one int8 weight, +-127 (or 0), at scale |a[c]| / 127: the product is exact
+    up to the float32 rounding of that scale. d becomes the int32 bias at s_x * s_w[c],
+    rounded once. A [N, C] input is viewed as [N, C, 1] (the same bytes).
+    """
+    _need_per_tensor(b, x, "input")
+    rank, channels = len(x.shape), (x.shape[1] if len(x.shape) > 1 else 0)
+    if rank not in (2, 3, 4):
+        raise b.error(f"BatchNormalization of a rank-{rank} tensor is not supported "
+                      "(rank 2, 3 or 4)")
+    scale, bias, mean, var = (np.asarray(p, np.float64).reshape(-1) for p in params)
+    if any(p.size != channels for p in (scale, bias, mean, var)):
+        raise b.error(f"BatchNormalization parameters must have {channels} values each "
+                      "(one per channel)")
+    if np.any(var + epsilon <= 0) or not all(np.all(np.isfinite(p))
+                                             for p in (scale, bias, mean, var)):
+        raise b.error("BatchNormalization parameters must be finite with var + epsilon > 0")
+    a = scale / np.sqrt(var + np.float64(epsilon))
+    offset = bias - mean * a
+    w = np.where(a > 0, 127, np.where(a < 0, -127, 0)).astype(np.int8)
+    w_scale = np.where(a != 0, np.abs(a) / 127, 1.0).astype(np.float32)
+    if np.any(w_scale[a != 0] == 0) or not np.all(np.isfinite(w_scale)):
+        raise b.error("BatchNormalization scale / sqrt(var + epsilon) is out of float32 range")
+    src = x if rank > 2 else emit_view(b, out_name + "_c1", x, (*x.shape, 1))
+    w_q = QuantParams(w_scale, np.zeros(channels, np.int32), 0, "int8")
+    kernel = [1] * (len(src.shape) - 2)
+    wt = b.add_tensor(out_name + "_w", (channels, 1, *kernel), "int8", w_q,
+                      w.reshape(channels, 1, *kernel))
+    bias_q = bias_to_int32(b, offset, None, src.quant, w_q, channels)
+    y = emit_conv(b, out_name if rank > 2 else out_name + "_bn", src, wt, bias_q, y_q, act,
+                  {"group": channels, "kernel_shape": kernel})
+    return y if rank > 2 else emit_view(b, out_name, y, x.shape)

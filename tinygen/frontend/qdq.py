@@ -14,7 +14,7 @@ from tinygen.frontend.build import activation_range, quantize_real
 from tinygen.ir import QuantParams
 
 # Producers a following Relu/Clip can be folded into (their output clamp).
-FUSABLE = {"Conv", "Gemm", "MatMul", "Add", "Mul"}
+FUSABLE = {"Conv", "Gemm", "MatMul", "Add", "Mul", "BatchNormalization"}
 
 
 def _q_params(L, node, out_dtype_hint=None):
@@ -207,11 +207,18 @@ def lower_float_op(L, node) -> None:
             bias, bscale = _bias(L, node.input[2] if len(node.input) > 2 else "")
         n = w.shape[0] if layout == "nk" else w.shape[-1]
 
-        def fin(o, q, kind, lo, hi):
-            bi = None if bias is None else ops.bias_to_int32(b, bias, bscale, x.quant,
-                                                            w.quant, n)
-            return ops.emit_fc(b, o, x, w, bi, q, activation_range(kind, lo, hi, q), layout)
-        pending(fin, fusable=True)
+        def with_bias(bias, bscale):
+            def fin(o, q, kind, lo, hi):
+                bi = None if bias is None else ops.bias_to_int32(b, bias, bscale, x.quant,
+                                                                w.quant, n)
+                return ops.emit_fc(b, o, x, w, bi, q, activation_range(kind, lo, hi, q),
+                                   layout)
+            return fin
+        pending(with_bias(bias, bscale), fusable=True)
+        if bias is None and w.is_const and len(w.shape) == 2:  # an Add may bring the bias
+            L.env[out].extra.update(with_bias=with_bias, bias_size=n, rank=len(x.shape))
+        return
+    if op == "Add" and _fold_bias(L, node, out):
         return
     if op in ("Add", "Mul"):
         a, c = L.deq_tensor(node.input[0]), L.deq_tensor(node.input[1])
@@ -224,6 +231,42 @@ def lower_float_op(L, node) -> None:
         x = L.deq_tensor(node.input[0])
         pa = dict(attrs, **({"global": True} if op == "GlobalAveragePool" else {}))
         pending(lambda o, q, *a: ops.emit_pool(b, "avgpool", o, x, q, pa), x.quant)
+        return
+    if op == "BatchNormalization":
+        x = L.deq_tensor(node.input[0])
+        if attrs.get("training_mode", 0) or any(o for o in node.output[1:]):
+            raise L.error("BatchNormalization in training mode is not supported")
+        what = ("scale", "B", "mean", "var")
+        params = [_real_const(L, node.input[i + 1], f"BatchNormalization {w}")
+                  for i, w in enumerate(what)]
+        eps = float(attrs.get("epsilon", 1e-5))
+
+        def fin(o, q, kind, lo, hi):
+            return ops.emit_batch_norm(b, o, x, params, eps, q, activation_range(kind, lo, hi, q))
+        pending(fin, fusable=True)
+        return
+    if op == "ReduceMean":
+        x = L.deq_tensor(node.input[0])
+        axes = attrs.get("axes")  # an attribute before opset 18, then an input
+        if axes is None and len(node.input) > 1 and node.input[1]:
+            axes = L.const(node.input[1], "ReduceMean axes").reshape(-1).tolist()
+        axes = ops.reduce_axes(b, len(x.shape), axes, int(attrs.get("noop_with_empty_axes", 0)))
+        if axes is None:  # noop_with_empty_axes and no axes: the input itself
+            L.env[out] = Deq(ops.emit_view(b, out, x, x.shape))
+            return
+        keep = bool(attrs.get("keepdims", 1))
+        pending(lambda o, q, *a: ops.emit_reduce_mean(b, o, x, q, axes, keep), x.quant)
+        return
+    if op in VIEWS and isinstance(L.value(node.input[0]), Pending):
+        # a reshape between a float op and its QuantizeLinear: quantize, then reshape
+        # (the same bytes), so the op still gets the QuantizeLinear's scale
+        src = L.value(node.input[0])
+
+        def view_after(o, q, *act):
+            t = src.finish(o + "_pre", q, *act)
+            b.at(*here)
+            return lower_data_movement(L, node, t, attrs, o)
+        L.env[out] = Pending(view_after, src.transparent_q, src.act, src.node, src.op, {})
         return
     if op == "Softmax":
         x = L.deq_tensor(node.input[0])
@@ -239,6 +282,54 @@ def lower_float_op(L, node) -> None:
     # Data movement keeps the input's scale: emit now, as a dequantized value.
     x = L.deq_tensor(node.input[0])
     L.env[out] = Deq(lower_data_movement(L, node, x, attrs, out))
+
+
+def _real_const(L, name: str, what: str) -> np.ndarray:
+    """The real value of a constant input: a float initializer, or DequantizeLinear of a
+    constant (per-tensor or along its only axis), as the ONNX definition gives it."""
+    from tinygen.frontend.lower import Deq
+
+    v = L.value(name)
+    if isinstance(v, Deq) and v.t.is_const and v.t.quant is not None:
+        t, q = v.t, v.t.quant
+        data = t.data.astype(np.int64)
+        if q.per_axis and data.ndim != 1:
+            raise L.error(f"{what} ('{name}') is quantized along an axis of a rank-{data.ndim} "
+                          "tensor; one value per channel expected")
+        return ((data - np.asarray(q.zero_point, np.int64)).astype(np.float32)
+                * np.asarray(q.scale, np.float32)).astype(np.float32)
+    return np.asarray(L.const(name, what), dtype=np.float32)
+
+
+def _fold_bias(L, node, out) -> bool:
+    """MatMul then Add of a constant vector, both in float before one QuantizeLinear (a
+    Linear layer as exporters write it): the vector becomes the fully connected op's bias."""
+    from tinygen.frontend.lower import Const, Deq, Pending
+
+    for mm, other in ((0, 1), (1, 0)):
+        p = L.value(node.input[mm])
+        if not (isinstance(p, Pending) and p.extra.get("with_bias") and p.act[0] is None):
+            continue
+        v = L.value(node.input[other])
+        n = p.extra["bias_size"]
+        if isinstance(v, Const):
+            bias, bscale = np.asarray(v.a, dtype=np.float64), None
+        elif isinstance(v, Deq) and v.t.is_const and v.t.quant is not None \
+                and v.t.quant.scale.size == 1:
+            t = v.t
+            if t.dtype == "int32":
+                bias, bscale = t.data, t.quant.scale
+            else:  # an int8 constant: its real value, re-quantized at s_x * s_w
+                bias = (t.data.astype(np.float64) - t.quant.scalar_zp()) * t.quant.scalar_scale()
+                bscale = None
+        else:
+            continue
+        if bias.size != n or bias.ndim > p.extra["rank"] or (bias.ndim and bias.shape[-1] != n):
+            continue  # not one value per output column: an ordinary Add
+        L.env[out] = Pending(p.extra["with_bias"](bias.reshape(-1), bscale), None,
+                             (None, None, None), p.node, p.op, {"fusable": True})
+        return True
+    return False
 
 
 def lower_data_movement(L, node, x, attrs, out):
@@ -322,6 +413,8 @@ def _pad_value(L, node, x) -> int:
 
 
 FLOAT_OPS = ("Conv", "Gemm", "MatMul", "Add", "Mul", "Concat", "MaxPool", "AveragePool",
-             "GlobalAveragePool", "Relu", "Clip", "LeakyRelu", "Sigmoid", "Tanh",
-             "HardSigmoid", "HardSwish", "Softmax", "Reshape", "Flatten", "Squeeze",
-             "Unsqueeze", "Transpose", "Pad", "Identity")
+             "GlobalAveragePool", "ReduceMean", "BatchNormalization", "Relu", "Clip",
+             "LeakyRelu", "Sigmoid", "Tanh", "HardSigmoid", "HardSwish", "Softmax", "Reshape",
+             "Flatten", "Squeeze", "Unsqueeze", "Transpose", "Pad", "Identity")
+# Ops that only give the same bytes another shape.
+VIEWS = ("Reshape", "Flatten", "Squeeze", "Unsqueeze", "Identity")

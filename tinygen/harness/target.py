@@ -14,8 +14,9 @@ from pathlib import Path
 from tinygen.errors import TinygenError
 from tinygen.harness.cbuild import STRICT_FLAGS
 from tinygen.harness.toolchain import Toolchain, find_toolchain
+from tinygen.resources import firmware_dir
 
-FIRMWARE_DIR = Path(__file__).resolve().parent / "firmware"
+FIRMWARE_DIR = firmware_dir()
 
 # Virtual time per instruction is 2^ICOUNT_SHIFT ns; 256 ns makes a timer tick (40 or
 # 50 ns) shorter than half an instruction, which is what makes the counts exact.

@@ -189,7 +189,8 @@ def _pool(graph: Graph, op: Op, mode: str) -> KernelCall:
         return KernelCall("tg_maxpool", "pool", geo, [x.name, y.name])
     p = make_avgpool_params(geo, x.quant.scalar_scale(), x.quant.scalar_zp(),
                             y.quant.scalar_scale(), y.quant.scalar_zp(),
-                            bool(op.attrs.get("count_include_pad", 0)), mode, "qlinear",
+                            bool(op.attrs.get("count_include_pad", 0)), mode,
+                            op.attrs.get("float_order", "qlinear"),
                             y.quant.src_dtype, lo, hi)
     return KernelCall("tg_avgpool", "pool", p, [x.name, y.name])
 

@@ -14,6 +14,9 @@ Two precisions:
 The default is float32 for the piecewise-linear functions (their float32 value is exactly what
 an ONNX runtime computes) and float64 for sigmoid and tanh (numpy's float32 exp/tanh is not the
 correctly rounded value, and no runtime agrees with another there anyway).
+
+"tabulated" takes f as 256 float32 values, one per table index, computed elsewhere (the
+frontend evaluates a whole float subgraph that way); only the QuantizeLinear step is done here.
 """
 from __future__ import annotations
 
@@ -29,6 +32,7 @@ INDEX_Q = np.arange(256, dtype=np.int64).astype(np.uint8).view(np.int8).astype(n
 LUT_FUNCTIONS = ("identity", "relu", "clip", "sigmoid", "tanh", "hard_sigmoid", "hard_swish",
                  "leaky_relu")
 DEFAULT_PRECISION = {"sigmoid": "float64", "tanh": "float64"}  # all others: float32
+TABULATED = "tabulated"  # f given as its 256 values (args: values)
 
 
 def lut(table: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -76,6 +80,11 @@ def _function(name: str, args: dict) -> Callable[[np.ndarray], np.ndarray]:
     if name == "leaky_relu":
         alpha = args.get("alpha", 0.01)
         return lambda x: _leaky_relu(x, alpha)
+    if name == TABULATED:
+        values = np.asarray(args["values"], dtype=np.float32).reshape(-1)
+        if values.shape != (256,):
+            raise ValueError(f"a tabulated function has 256 values, not {values.size}")
+        return lambda x: values.astype(x.dtype)
     raise ValueError(f"no table builder for {name!r} (known: {', '.join(LUT_FUNCTIONS)})")
 
 
@@ -88,10 +97,12 @@ def _check_quant(s_in: float, s_out: float) -> None:
 def build_table(name: str, s_in: float, z_in: int, s_out: float, z_out: int,
                 act_min: int = INT8_MIN, act_max: int = INT8_MAX, precision: str | None = None,
                 **args) -> np.ndarray:
-    """The 256-entry int8 table of function `name` (one of LUT_FUNCTIONS) for tg_lut.
+    """The 256-entry int8 table of function `name` (one of LUT_FUNCTIONS, or TABULATED) for
+    tg_lut.
 
     args are the op's attributes: alpha/beta (hard_sigmoid), alpha (leaky_relu), min/max
-    (clip, in real units). act_min/act_max clamp a fused activation's range (int8 domain).
+    (clip, in real units), values (TABULATED: f at each table index, float32).
+    act_min/act_max clamp a fused activation's range (int8 domain).
     """
     _check_quant(s_in, s_out)
     precision = precision or DEFAULT_PRECISION.get(name, "float32")
