@@ -45,6 +45,9 @@ test: $(VENV)/.installed toolchain lint
 
 bench: $(VENV)/.installed
 	$(PY) -m tinygen.bench
+	@if command -v arm-none-eabi-gcc >/dev/null && command -v qemu-system-arm >/dev/null; \
+	then $(PY) -m tinygen.bench_target >/dev/null && echo "wrote bench/target.md"; \
+	else echo "bench/target.md not regenerated: needs arm-none-eabi-gcc and qemu-system-arm"; fi
 
 fuzz: $(VENV)/.installed
 	$(PY) -m pytest tests/fuzz -p no:cacheprovider --hypothesis-profile=campaign

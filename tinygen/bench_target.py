@@ -1,12 +1,17 @@
 """`python -m tinygen.bench_target`: executed instructions of the example models on Cortex-M.
 
-Every example model (float exports left out) is compiled once with the default flags and
-run under QEMU on each core (tinygen.emulate, -Os, one sample: the model's own
-sample_inputs.npz when it has one, else seeded random data). The outputs must match the
-numpy reference bit for bit. The markdown written to bench/target.md (and printed) has
-  - a summary: instructions and instructions per MAC, model x core;
-  - per model: instructions of each kernel call on each core, and per MAC for the calls
-    that have MACs.
+Every example model (float exports left out) is compiled with the default flags and run
+under QEMU on each core (tinygen.emulate, -Os, one sample: the model's own
+sample_inputs.npz when it has one, else seeded random data), and with --kernels portable on
+Cortex-M4 and M7. The outputs must match the numpy reference bit for bit. The markdown
+written to bench/target.md (and printed) has
+  - a summary: instructions per MAC, model x core (DSP and portable kernels), with stack,
+    flash and code size;
+  - per op kind over all models: instructions per MAC (per output element for MAC-less
+    kinds), DSP vs portable on M4 and M7;
+  - requantization: instructions per output beyond the MAC loop, from single-layer 1x1
+    convolutions that differ only in their channel counts (exact differences);
+  - per model: instructions of each kernel call on each core.
 Instruction counts are exact and repeatable (docs/target.md); they are not cycles.
 """
 from __future__ import annotations
@@ -28,6 +33,8 @@ from tinygen.target_check import emulate_compiled
 
 ROOT = Path(__file__).resolve().parent.parent
 CPUS = ("cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33")
+PORTABLE_CPUS = ("cortex-m4", "cortex-m7")  # also measured with --kernels portable
+PORTABLE = " portable"  # suffix of a run key measured with --kernels portable
 # the emitted model.c names each call: "/* op 3: tg_add <- QLinearAdd '/Add_quant' */"
 _CALL_COMMENT = re.compile(r"/\* op (\d+): (tg_\w+) <- (\w+)")
 
@@ -38,7 +45,9 @@ class OpFigures:
     kernel: str  # C function the emitted model calls, e.g. tg_conv
     onnx_op: str
     macs: int
-    instructions: dict[str, int] = field(default_factory=dict)  # per core
+    kind: str = ""  # op_kind()
+    elements: int = 0  # output elements
+    instructions: dict[str, int] = field(default_factory=dict)  # per run key (core[ portable])
 
 
 @dataclass
@@ -46,8 +55,34 @@ class ModelFigures:
     name: str
     macs: int = 0
     error: str = ""
-    total: dict[str, int] = field(default_factory=dict)  # per core: the <prefix>_run call
+    total: dict[str, int] = field(default_factory=dict)  # per run key: the <prefix>_run call
+    stack: dict[str, int] = field(default_factory=dict)
+    flash: dict[str, int] = field(default_factory=dict)
+    constants: int = 0  # flash bytes of constants (weights, packs, tables, params)
     ops: list[OpFigures] = field(default_factory=list)
+
+
+def op_kind(func: str, params) -> str:
+    """The op kinds the tables group by."""
+    if func == "tg_conv":
+        small = params.in_c // params.groups <= 8
+        return "stem conv (<= 8 input channels)" if small else "conv"
+    return {"tg_pwconv": "1x1 conv", "tg_dwconv": "depthwise conv", "tg_fc": "fully connected",
+            "tg_add": "add / mul", "tg_mul": "add / mul", "tg_maxpool": "pooling",
+            "tg_avgpool": "pooling"}.get(func, "other")
+
+
+def call_facts(c: Compiled) -> list[tuple[str, int]]:
+    """(op kind, output elements) of each emitted kernel call, in TG_OP_BEGIN order."""
+    out = []
+    for k in c.plan.order:
+        op = c.graph.ops[k]
+        if op.kind == "view":
+            continue
+        call = op.attrs.get("call")
+        kind = op_kind(call.func, call.params) if call is not None else "other"
+        out.append((kind, int(c.graph.tensors[op.outputs[0]].size)))
+    return out
 
 
 def call_kernels(c: Compiled) -> dict[int, tuple[str, str]]:
@@ -68,30 +103,43 @@ def measure_model(path: Path, cpus: tuple[str, ...] = CPUS) -> ModelFigures:
     """Emulate one model on each core; a model that fails gets an error line instead."""
     mf = ModelFigures(path.stem)
     try:
-        c = compile_model(str(path), BuildOptions())
-        kernels = call_kernels(c)
-        data = bench_inputs(c, path)
-        for cpu in cpus:
-            fig = emulate_compiled(c, data, cpu, flags="bench")
-            if not fig["bit_exact"]:
-                raise TinygenError(f"outputs on {cpu} differ from the reference", file=str(path))
-            record_run(mf, cpu, fig, kernels)
+        runs = [(cpu, "auto") for cpu in cpus]
+        runs += [(cpu, "portable") for cpu in cpus if cpu in PORTABLE_CPUS]
+        for kernels_opt in ("auto", "portable"):
+            chosen = [cpu for cpu, k in runs if k == kernels_opt]
+            if not chosen:
+                continue
+            c = compile_model(str(path), BuildOptions(kernels=kernels_opt))
+            kernels, facts = call_kernels(c), call_facts(c)
+            mf.constants = c.const_bytes
+            data = bench_inputs(c, path)
+            for cpu in chosen:
+                fig = emulate_compiled(c, data, cpu, flags="bench")
+                if not fig["bit_exact"]:
+                    raise TinygenError(f"outputs on {cpu} ({kernels_opt} kernels) differ from "
+                                       "the reference", file=str(path))
+                key = cpu + (PORTABLE if kernels_opt == "portable" else "")
+                record_run(mf, key, fig, kernels, facts)
     except TinygenError as exc:
         mf.error = exc.one_line()
     return mf
 
 
-def record_run(mf: ModelFigures, cpu: str, fig: dict, kernels: dict[int, tuple[str, str]]):
-    """Fold one core's emulate() figures into the model's table rows."""
+def record_run(mf: ModelFigures, key: str, fig: dict, kernels: dict[int, tuple[str, str]],
+               facts: list[tuple[str, int]] | None = None):
+    """Fold one run's emulate() figures into the model's table rows."""
     mf.macs = int(fig["macs"])
-    mf.total[cpu] = int(fig["instructions"])
+    mf.total[key] = int(fig["instructions"])
+    mf.stack[key] = int(fig["stack_bytes"])
+    mf.flash[key] = int(fig["flash_bytes"])
     rows = {op.index: op for op in mf.ops}
     for entry in fig["per_op"]:
         i = int(entry["op"])
         if i not in rows:
             kernel, onnx_op = kernels.get(i, ("?", "?"))
-            rows[i] = OpFigures(i, kernel, onnx_op, int(entry["macs"]))
-        rows[i].instructions[cpu] = int(entry["instructions"])
+            kind, elements = facts[i] if facts and i < len(facts) else ("other", 0)
+            rows[i] = OpFigures(i, kernel, onnx_op, int(entry["macs"]), kind, elements)
+        rows[i].instructions[key] = int(entry["instructions"])
     mf.ops = [rows[i] for i in sorted(rows)]
 
 
@@ -99,43 +147,178 @@ def per_mac(instructions: int, macs: int) -> str:
     return f"{instructions / macs:.2f}" if macs else ""
 
 
+def run_keys(cpus: tuple[str, ...]) -> list[str]:
+    """Each core, followed by its portable run where there is one."""
+    keys = []
+    for cpu in cpus:
+        keys.append(cpu)
+        if cpu in PORTABLE_CPUS:
+            keys.append(cpu + PORTABLE)
+    return keys
+
+
 def summary_table(models: list[ModelFigures], cpus: tuple[str, ...]) -> list[str]:
-    head = "| model | MACs | " + " | ".join(f"{c} instr | {c} / MAC" for c in cpus) + " |"
-    lines = [head, "| --- | --: |" + " --: | --: |" * len(cpus)]
+    keys = run_keys(cpus)
+    head = "| model | MACs | " + " | ".join(f"{k} / MAC" for k in keys) + " |"
+    lines = [head, "| --- | --: |" + " --: |" * len(keys)]
     for m in models:
         if m.error:
             continue
-        cells = []
-        for cpu in cpus:
-            n = m.total.get(cpu)
-            cells += ["", ""] if n is None else [str(n), per_mac(n, m.macs)]
+        cells = [per_mac(m.total[k], m.macs) if k in m.total else "" for k in keys]
         lines.append(f"| {m.name} | {m.macs} | " + " | ".join(cells) + " |")
     notes = [f"- {m.name}: not measured: {m.error}" for m in models if m.error]
     return lines + ([""] + notes if notes else [])
 
 
-def model_table(m: ModelFigures, cpus: tuple[str, ...]) -> list[str]:
-    head = "| op | kernel | ONNX op | MACs | " + " | ".join(f"{c} | / MAC" for c in cpus) + " |"
-    lines = [f"### {m.name}", "", head, "| --: | --- | --- | --: |" + " --: | --: |" * len(cpus)]
-    for op in m.ops:
+def sizes_table(models: list[ModelFigures], cpus: tuple[str, ...]) -> list[str]:
+    """Stack high-water and flash per core (DSP kernels; portable in parentheses), and the
+    code share of flash (flash minus the constants the code generator wrote)."""
+    keys = run_keys(cpus)
+    head = ("| model | constants B | " + " | ".join(f"{c} stack B | {c} flash B | {c} code B"
+                                                   for c in cpus) + " |")
+    lines = [head, "| --- | --: |" + " --: | --: | --: |" * len(cpus)]
+    for m in models:
+        if m.error:
+            continue
         cells = []
         for cpu in cpus:
-            n = op.instructions.get(cpu)
+            if cpu not in m.total:
+                cells += ["", "", ""]
+                continue
+            port = cpu + PORTABLE
+            if port in keys and port in m.total:
+                cells += [f"{m.stack[cpu]} ({m.stack[port]})", f"{m.flash[cpu]} ({m.flash[port]})",
+                          f"{m.flash[cpu] - m.constants} ({m.flash[port] - m.constants})"]
+            else:
+                cells += [str(m.stack[cpu]), str(m.flash[cpu]), str(m.flash[cpu] - m.constants)]
+        lines.append(f"| {m.name} | {m.constants} | " + " | ".join(cells) + " |")
+    return lines
+
+
+KIND_ORDER = ("1x1 conv", "depthwise conv", "conv", "stem conv (<= 8 input channels)",
+              "fully connected", "add / mul", "pooling", "other")
+
+
+def kind_table(models: list[ModelFigures], cpus: tuple[str, ...]) -> list[str]:
+    """Per op kind over all models: instructions per MAC, or per output element for kinds
+    without MACs."""
+    keys = [k for k in run_keys(cpus) if k.split()[0] in PORTABLE_CPUS]
+    sums: dict[str, dict] = {}
+    for m in models:
+        if m.error:
+            continue
+        for op in m.ops:
+            acc = sums.setdefault(op.kind, {"calls": 0, "macs": 0, "elements": 0, "keys": {}})
+            acc["calls"] += 1
+            acc["macs"] += op.macs
+            acc["elements"] += op.elements
+            for k in keys:
+                acc["keys"][k] = acc["keys"].get(k, 0) + op.instructions.get(k, 0)
+    head = "| op kind | calls | MACs | per | " + " | ".join(keys) + " |"
+    lines = [head, "| --- | --: | --: | --- |" + " --: |" * len(keys)]
+    for kind in [k for k in KIND_ORDER if k in sums]:
+        acc = sums[kind]
+        unit, n = ("MAC", acc["macs"]) if acc["macs"] else ("element", acc["elements"])
+        cells = [f"{acc['keys'][k] / n:.2f}" if n else "" for k in keys]
+        lines.append(f"| {kind} | {acc['calls']} | {acc['macs']} | {unit} | "
+                     + " | ".join(cells) + " |")
+    return lines
+
+
+def probe_model(path: Path, in_c: int, out_c: int, side: int = 8) -> None:
+    """A one-layer QLinearConv 1x1 model (int8, per-tensor, seeded weights) for the probe."""
+    import onnx
+    from onnx import TensorProto, helper, numpy_helper
+    rng = np.random.default_rng(in_c * 1000 + out_c)
+    w = rng.integers(-127, 128, size=(out_c, in_c, 1, 1)).astype(np.int8)
+    b = rng.integers(-2000, 2000, size=out_c).astype(np.int32)
+    init = [numpy_helper.from_array(w, "w"), numpy_helper.from_array(b, "b")]
+    for name, value, dt in (("xs", 0.02, np.float32), ("ws", 0.01, np.float32),
+                            ("ys", 0.05, np.float32), ("xz", -3, np.int8), ("wz", 0, np.int8),
+                            ("yz", 5, np.int8)):
+        init.append(numpy_helper.from_array(np.array(value, dtype=dt), name))
+    nodes = [helper.make_node("QuantizeLinear", ["x", "xs", "xz"], ["xq"]),
+             helper.make_node("QLinearConv", ["xq", "xs", "xz", "w", "ws", "wz", "ys", "yz", "b"],
+                              ["yq"], kernel_shape=[1, 1]),
+             helper.make_node("DequantizeLinear", ["yq", "ys", "yz"], ["y"])]
+    graph = helper.make_graph(nodes, "requant_probe",
+                              [helper.make_tensor_value_info("x", TensorProto.FLOAT,
+                                                             [1, in_c, side, side])],
+                              [helper.make_tensor_value_info("y", TensorProto.FLOAT,
+                                                             [1, out_c, side, side])],
+                              initializer=init)
+    onnx.save(helper.make_model(graph, opset_imports=[helper.make_opsetid("", 13)]), path)
+
+
+def requant_probe(cpus: tuple[str, ...], k: int = 16, ch: int = 32, side: int = 8) -> list[str]:
+    """Instructions per output beyond the MAC loop of a 1x1 conv, measured exactly:
+    with I(K, C) the instructions of a K -> C layer on P pixels, the cost of one more output
+    is p(K) = (I(K, 2C) - I(K, C)) / (P*C) (widening and per-pixel work cancel), the MAC
+    loop's share of it is K*m with m = (p(2K) - p(K)) / K, and the rest, p(K) - K*m, is the
+    bias, requantization, store and channel-loop cost of one output."""
+    import tempfile
+    keys = [k_ for k_ in run_keys(cpus) if k_.split()[0] in PORTABLE_CPUS]
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="tinygen-probe-") as tmp:
+        counts: dict[tuple[str, int, int], int] = {}
+        for kk in (k, 2 * k):
+            for cc in (ch, 2 * ch):
+                path = Path(tmp) / f"probe_{kk}_{cc}.onnx"
+                probe_model(path, kk, cc, side)
+                for key in keys:
+                    opt = "portable" if key.endswith(PORTABLE) else "auto"
+                    c = compile_model(str(path), BuildOptions(kernels=opt))
+                    fig = emulate_compiled(c, random_inputs(c.graph, 1), key.split()[0],
+                                           flags="bench")
+                    if not fig["bit_exact"]:
+                        raise TinygenError(f"requant probe on {key} differs from the reference")
+                    counts[(key, kk, cc)] = int(fig["instructions"])
+    pixels = side * side
+    for key in keys:
+        p_k = (counts[(key, k, 2 * ch)] - counts[(key, k, ch)]) / (pixels * ch)
+        p_2k = (counts[(key, 2 * k, 2 * ch)] - counts[(key, 2 * k, ch)]) / (pixels * ch)
+        m = (p_2k - p_k) / k
+        rows.append(f"| {key} | {p_k:.2f} | {m:.3f} | {p_k - k * m:.2f} |")
+    return ([f"1x1 conv, {k} and {2 * k} inputs, {ch} and {2 * ch} outputs, {side}x{side} "
+             "pixels, fast requantization (int8 range clamp):", "",
+             "| run | instructions per output | MAC loop per MAC "
+             "| beyond the MAC loop, per output |",
+             "| --- | --: | --: | --: |"] + rows)
+
+
+def model_table(m: ModelFigures, cpus: tuple[str, ...]) -> list[str]:
+    keys = run_keys(cpus)
+    head = "| op | kernel | ONNX op | MACs | " + " | ".join(f"{k} | / MAC" for k in keys) + " |"
+    lines = [f"### {m.name}", "", head, "| --: | --- | --- | --: |" + " --: | --: |" * len(keys)]
+    for op in m.ops:
+        cells = []
+        for key in keys:
+            n = op.instructions.get(key)
             cells += ["", ""] if n is None else [str(n), per_mac(n, op.macs)]
         lines.append(f"| {op.index} | {op.kernel} | {op.onnx_op} | {op.macs} | "
                      + " | ".join(cells) + " |")
     return lines + [""]
 
 
-def render_markdown(models: list[ModelFigures], cpus: tuple[str, ...]) -> str:
+def render_markdown(models: list[ModelFigures], cpus: tuple[str, ...],
+                    probe: list[str] | None = None) -> str:
     """The whole bench/target.md text."""
     lines = ["# tinygen on Cortex-M: executed instructions", "",
              "QEMU instruction counts (exact, not cycles; docs/target.md), arm-none-eabi-gcc -Os, "
-             "fixed-point requantization, default build flags, one sample per model, outputs "
-             "bit-exact against the numpy reference. Totals are the whole `<prefix>_run()` call; "
-             "per-op figures come from a separate build with hooks around each kernel call.",
-             "", "## Whole model", ""]
+             "fixed-point requantization, default build flags (\"portable\": --kernels "
+             "portable), one sample per model, outputs bit-exact against the numpy reference. "
+             "Totals are the whole `<prefix>_run()` call; per-op figures come from a separate "
+             "build with hooks around each kernel call.",
+             "", "## Whole model: instructions per MAC", ""]
     lines += summary_table(models, cpus)
+    lines += ["", "## Stack, flash and code", "",
+              "Bytes; --kernels portable in parentheses. Code = flash minus the constants the "
+              "code generator wrote (weights, packs, tables, params).", ""]
+    lines += sizes_table(models, cpus)
+    lines += ["", "## Per op kind, all models", ""]
+    lines += kind_table(models, cpus)
+    if probe:
+        lines += ["", "## Requantization", ""] + probe
     lines += ["", "## Per kernel call", ""]
     for m in models:
         if not m.error:
@@ -147,7 +330,8 @@ def bench_target(models: list[Path] | None = None, cpus: tuple[str, ...] = CPUS,
                  out: Path | None = None) -> str:
     """Emulate each model on each core, write the markdown to out (bench/target.md), return it."""
     paths = models if models else example_models(ROOT)
-    text = render_markdown([measure_model(p, cpus) for p in paths], cpus)
+    probe = requant_probe(cpus) if any(c in PORTABLE_CPUS for c in cpus) else None
+    text = render_markdown([measure_model(p, cpus) for p in paths], cpus, probe)
     out = out if out is not None else ROOT / "bench" / "target.md"
     out.parent.mkdir(parents=True, exist_ok=True)
     out.write_text(text)

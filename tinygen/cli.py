@@ -65,6 +65,8 @@ def add_build_flags(p: argparse.ArgumentParser) -> None:
     g.add_argument("--region", action="append", type=parse_region, default=[],
                    metavar="NAME=SIZE", help="memory region, first = arena (repeatable)")
     g.add_argument("--io", choices=["arena", "external"], default="arena")
+    g.add_argument("--kernels", choices=["auto", "portable"], default="auto",
+                   help="auto: each core's fastest kernels; portable: plain C on every core")
     g.add_argument("--tables", choices=["onnx", "onnxruntime"], default="onnx",
                    help="Sigmoid/Tanh/Softmax as the ONNX definition (default) or as "
                         "onnxruntime approximates them")
@@ -82,19 +84,14 @@ def build_options(args):
                         input_shapes=args.input_shape, planner=args.planner, order=args.order,
                         align=args.align, arena_limit=args.arena_limit,
                         flash_limit=args.flash_limit, inplace=not args.no_inplace,
-                        regions=args.region, io=args.io, tables=args.tables)
+                        regions=args.region, io=args.io, kernels=args.kernels,
+                        tables=args.tables)
 
 
 def flags_text(args) -> str:
-    parts = [f"--requant {args.requant}", f"--planner {args.planner}", f"--order {args.order}",
-             f"--align {args.align}", f"--io {args.io}"]
-    if args.tables != "onnx":
-        parts.append(f"--tables {args.tables}")
-    if args.no_inplace:
-        parts.append("--no-inplace")
-    parts += [f"--region {n}={s}" for n, s in args.region]
-    parts += [f"--input-shape {s}" for s in args.input_shape]
-    return " ".join(parts)
+    """The build flags as the emitted files state them (one text for CLI and API)."""
+    from tinygen.compiler import options_text
+    return options_text(build_options(args))
 
 
 def make_parser() -> argparse.ArgumentParser:

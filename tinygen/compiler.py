@@ -17,7 +17,7 @@ from tinygen.passes.cleanup import collapse_views, drop_dead_ops, isolate_io
 from tinygen.passes.fuse import fuse_activation
 from tinygen.passes.layout import assign_layout
 from tinygen.passes.overflow import check_accumulators
-from tinygen.passes.params import lower_params
+from tinygen.passes.params import choose_requant_forms, lower_params
 from tinygen.plan import MemoryPlan, build_buffers, plan_memory, verify_plan
 from tinygen.plan.lifetimes import lower_bound
 from tinygen.schedule import order_ops
@@ -38,13 +38,16 @@ class BuildOptions:
     inplace: bool = True
     regions: list[tuple[str, int]] = field(default_factory=list)
     io: str = "arena"
+    kernels: str = "auto"  # auto: the fastest path of each core; portable: plain C only
     tables: str = "onnx"  # Sigmoid/Tanh/Softmax: the ONNX definition, or onnxruntime's own
 
 
 def options_text(opts: BuildOptions) -> str:
     """The build flags as the emitted files state them (header comment, 'Flags:')."""
     parts = [f"--requant {opts.requant}", f"--planner {opts.planner}", f"--order {opts.order}",
-             f"--align {opts.align}", f"--io {opts.io}"]
+             f"--align {opts.align}", f"--io {opts.io}", f"--kernels {opts.kernels}"]
+    if opts.tables != "onnx":
+        parts.append(f"--tables {opts.tables}")
     if not opts.inplace:
         parts.append("--no-inplace")
     parts += [f"--region {n}={s}" for n, s in opts.regions]
@@ -116,6 +119,7 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
     graph = isolate_io(graph)
     graph = lower_params(graph, opts.requant, opts.tables)
     graph = check_accumulators(graph)
+    graph = choose_requant_forms(graph)
     plan = plan_arena(graph, opts)
     macs = count_macs(graph)
     c = Compiled(graph, plan, opts, int(sum(macs)), constant_bytes(graph), macs)

@@ -5,6 +5,9 @@
  * y may alias a or b when that input is dense and has the output's shape.
  * add fixed: a' = mul_shift((a - a_zp) << left_shift, a_mult, a_shift), b' likewise,
  *            y = clamp(out_zp + mul_shift(a' + b', out_mult, out_shift)).
+ *            With a_table/b_table (int32[256], compile time, indexed by the input byte as
+ *            unsigned) the same y is clamp((a_table[a] + b_table[b]) >> TG_ADD_TABLE_SHIFT)
+ *            (tinygen.reference.eltwise.add_tables); NULL: computed as above.
  * mul fixed: y = clamp(out_zp + mul_shift((a - a_zp) * (b - b_zp), out_mult, out_shift)).
  * float (use_float; onnxruntime's QLinearAdd/QLinearMul on x86-64), with A = a + raw_offset,
  * B = b + raw_offset (the model's own int8 or uint8 values):
@@ -34,7 +37,10 @@ typedef struct {
     float bias;                                /* float: constant term */
     int32_t raw_offset;                        /* float: 128 for uint8 models, else 0 */
     int32_t a_bcast_inner;                     /* add, float: a is the scalar of each row */
+    const int32_t *a_table, *b_table;          /* add, fixed: see above, or NULL */
 } tg_eltwise_params_t;
+
+#define TG_ADD_TABLE_SHIFT 10
 
 void tg_add(const tg_eltwise_params_t *p, const int8_t *a, const int8_t *b, int8_t *y);
 void tg_mul(const tg_eltwise_params_t *p, const int8_t *a, const int8_t *b, int8_t *y);

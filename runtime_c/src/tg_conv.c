@@ -1,14 +1,13 @@
 /* tg_conv.c - direct convolution, channels-last, contract in tg_conv.h.
  *
  * tg_conv works on two output pixels at a time. It gathers each pixel's receptive field
- * ("patch") in weight order (ky, kx, channel of the group) into a small stack buffer as
- * int16 x - in_zp, padding as 0, so the zero point and the padding are dealt with once per
- * pixel instead of once per output channel. Each output channel is then a plain dot product
- * of the patch with the channel's weight row, taken for two channels and both pixels at
- * once: every weight word loaded serves two pixels, every patch word two channels. A weight
- * zero point comes off at the end: sum x'(w - wz) = sum x'w - wz * sum x' (x' = x - in_zp).
- * A patch longer than TG_CONV_PATCH is taken in pieces. The sums of up to TG_CONV_BLOCK
- * channels wait in a stack array and are requantized one pixel at a time.
+ * ("patch") in weight order (ky, kx, channel of the group) into the arena scratch, padding
+ * as in_zp, and widens both patches once into the pair buffer of the blocked matrix core
+ * (tg_mat.h), so the zero point and the padding are dealt with once per pixel instead of
+ * once per output channel. Each output channel is then a dot product of the patch with the
+ * channel's row of the compile-time pack (w - w_zp as int16), two channels and both pixels
+ * at once (tg_mat_channels: SMLAD assembly on DSP cores). The input row addresses of an
+ * output row are worked out once per row (rings wrap there).
  * tg_dwconv with multiplier 1 runs four channels at a time: one input word holds four
  * neighbouring channels, and a per-call table of int16 weights in [tap][channel] order
  * holds their weights side by side. The valid tap range is worked out once per pixel, so
@@ -28,19 +27,20 @@
  * twelve registers) run plain C loops on the same buffers.
  */
 #include "tg_conv.h"
+#include "tg_mat.h"
 #include "tg_window.h"
 
 #include <string.h>
 
-#if defined(__ARM_FEATURE_DSP) && defined(__ARM_FEATURE_SIMD32) && defined(__GNUC__) \
-    && defined(__OPTIMIZE__)
-#define TG_CONV_DSP 1
+#define TG_CONV_DSP TG_DSP  /* tg_arm_dsp.h */
+
+/* GNU C's noinline, for loops that gcc -Os would spill when inlined into their callers. */
+#if defined(__GNUC__)
+#define TG_CONV_NOINLINE __attribute__((noinline))
 #else
-#define TG_CONV_DSP 0
+#define TG_CONV_NOINLINE
 #endif
 
-#define TG_CONV_PATCH 128  /* patch elements of one pixel held at once (a multiple of 4) */
-#define TG_CONV_BLOCK 32   /* output channels whose partial sums are kept between pieces */
 #define TG_DW_TABLE 512    /* int16 weights of one depthwise channel block (1 KiB) */
 #define TG_DW_BLOCK 32     /* most channels in one depthwise block */
 
@@ -75,21 +75,6 @@ static void tg_conv_put(const tg_requant_t *rq, void *y, int32_t idx, const int3
 }
 
 #if TG_CONV_DSP
-static inline uint32_t tg_conv_load32(const void *src)
-{
-    uint32_t v;
-    memcpy(&v, src, sizeof v);
-    return v;
-}
-
-/* off + bytes 0 and 2 of v, and off + bytes 1 and 3, sign-extended into int16 lanes. */
-static inline void tg_conv_widen4(uint32_t v, uint32_t off, uint32_t *even, uint32_t *odd)
-{
-    __asm__("sxtab16 %0, %2, %3\n\t"
-            "sxtab16 %1, %2, %3, ror #8"
-            : "=&r"(*even), "=r"(*odd) : "r"(off), "r"(v));
-}
-
 /* Both int16 lanes set to -zp. */
 static inline uint32_t tg_conv_neg_pair(int32_t zp)
 {
@@ -99,294 +84,91 @@ static inline uint32_t tg_conv_neg_pair(int32_t zp)
 
 /* ---- tg_conv ------------------------------------------------------------------------- */
 
-/* Patch elements [k0, k0 + len) of the output pixel at window win, batch b, group g, as
- * int8. Element k is tap k / in_pg, channel g*in_pg + k % in_pg; padding reads as in_zp. */
-static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, tg_conv_window_t win,
-                           int32_t b, int32_t g, int32_t k0, int32_t len, int8_t *dst)
+/* Scratch of one call (tg_conv.h), 4-byte aligned: the byte offsets into x of the k_h input
+ * rows of the output row being made (int32 each, not pointers: 4-byte alignment is all the
+ * plan promises), the raw patches of both pixels (k_len int8 each, rounded up to 4) and the
+ * pair buffer. */
+static int32_t tg_conv_raw_offset(const tg_conv_params_t *p)
+{
+    return 4 * p->k_h;
+}
+
+/* The patch of output column ox, group g, into raw: tap (ky, kx), channel ci of the group
+ * at ky * k_w * in_pg + kx * in_pg + ci; x + rows[ky] is the input row of tap row ky (-1:
+ * padding); padding reads as in_zp. */
+static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, const int32_t *rows,
+                           int32_t ox, int32_t g, int8_t *raw)
 {
     const int32_t in_pg = p->in_c / p->groups;
-    /* Neighbouring taps of one kernel row are neighbours in x too: copy them as one run. */
-    const int taps_adjacent = p->dil_w == 1 && in_pg == p->in_c;
-    const int32_t end = k0 + len;
-    int32_t k = k0;
-    while (k < end) {
-        const int32_t tap = k / in_pg;
-        const int32_t ci = k - tap * in_pg;
-        const int32_t ky = tap / p->k_w;
-        const int32_t kx = tap - ky * p->k_w;
-        const int row_valid = ky >= win.ky0 && ky < win.ky1;
-        int32_t run;
-        if (!row_valid || kx >= win.kx1) {
-            run = (p->k_w - kx) * in_pg - ci;  /* the rest of this kernel row is padding */
-        } else if (kx < win.kx0) {
-            run = (win.kx0 - kx) * in_pg - ci;
+    const int32_t row_len = p->k_w * in_pg;
+    const int32_t base_x = ox * p->stride_w - p->pad_left;
+    int32_t kx0, kx1, ky, kx;
+    tg_tap_range(base_x, p->dil_w, p->k_w, p->in_w, &kx0, &kx1);
+    for (ky = 0; ky < p->k_h; ++ky, raw += row_len) {
+        const int8_t *row;
+        if (rows[ky] < 0 || kx0 == kx1) {
+            memset(raw, (int8_t)p->in_zp, (size_t)row_len);
+            continue;
+        }
+        row = x + rows[ky] + g * in_pg;
+        memset(raw, (int8_t)p->in_zp, (size_t)(kx0 * in_pg));
+        if (p->dil_w == 1 && in_pg == p->in_c) {  /* the valid taps are one run of x */
+            memcpy(raw + kx0 * in_pg, row + (base_x + kx0) * p->in_c,
+                   (size_t)((kx1 - kx0) * in_pg));
         } else {
-            run = (taps_adjacent ? win.kx1 - kx : 1) * in_pg - ci;
+            for (kx = kx0; kx < kx1; ++kx) {
+                memcpy(raw + kx * in_pg, row + (base_x + kx * p->dil_w) * p->in_c,
+                       (size_t)in_pg);
+            }
         }
-        run = run < end - k ? run : end - k;
-        if (!row_valid || kx < win.kx0 || kx >= win.kx1) {
-            memset(dst, (int8_t)p->in_zp, (size_t)run);
-        } else {
-            const int32_t iy = win.base_y + ky * p->dil_h;
-            const int32_t ix = win.base_x + kx * p->dil_w;
-            memcpy(dst, x + ((b * p->in_h + iy) * p->in_w + ix) * p->in_c + g * in_pg + ci,
-                   (size_t)run);
-        }
-        dst += run;
-        k += run;
+        memset(raw + kx1 * in_pg, (int8_t)p->in_zp, (size_t)((p->k_w - kx1) * in_pg));
     }
 }
 
-/* Patch elements [k0, k0 + len) of output pixel pix (flat over n, out_h, out_w), group g:
- * a pointer into x itself when they are one contiguous run there (a window without padding
- * whose kernel rows follow each other in memory, as in 1x1 and 1-D convolutions), else
- * gathered into raw. */
-static const int8_t *tg_conv_patch(const tg_conv_params_t *p, const int8_t *x, int32_t pix,
-                                   int32_t g, int32_t k0, int32_t len, int8_t *raw)
+void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
+             int32_t row0, int32_t row1)
 {
-    const int32_t ox = pix % p->out_w;
-    const int32_t oy = (pix / p->out_w) % p->out_h;
-    const int32_t b = pix / (p->out_w * p->out_h);
-    const tg_conv_window_t win = tg_conv_window(p, oy, ox);
-    const int full = win.ky0 == 0 && win.ky1 == p->k_h && win.kx0 == 0 && win.kx1 == p->k_w;
-    const int rows_follow = p->k_h == 1 || (p->dil_h == 1 && p->k_w == p->in_w);
-    if (full && rows_follow && p->groups == 1 && p->dil_w == 1) {
-        return x + ((b * p->in_h + win.base_y) * p->in_w + win.base_x) * p->in_c + k0;
-    }
-    tg_conv_gather(p, x, win, b, g, k0, len, raw);
-    return raw;
-}
-
-/* raw (len int8, padding already in_zp) -> xw, int16 x - in_zp. The DSP path stores each
- * group of four elements as lanes 0,2 then 1,3 (what SXTB16 makes of a weight word); a last
- * partial group ends at element len - 1 and has the elements before len & ~3 set to 0, so it
- * pairs with the weight word at len - 4. */
-static void tg_conv_widen_patch(const int8_t *raw, int32_t len, int32_t in_zp, int16_t *xw)
-{
-    int32_t i = 0;
-#if TG_CONV_DSP
-    const uint32_t off = tg_conv_neg_pair(in_zp);
-    uint32_t pair[2];
-    for (; i + 4 <= len; i += 4) {
-        tg_conv_widen4(tg_conv_load32(raw + i), off, &pair[0], &pair[1]);
-        memcpy(xw + i, pair, sizeof pair);
-    }
-    if (i < len && len >= 4) {
-        int8_t last[4];
-        memcpy(last, raw + len - 4, sizeof last);
-        memset(last, (int8_t)in_zp, (size_t)(i + 4 - len));  /* already in the groups before */
-        tg_conv_widen4(tg_conv_load32(last), off, &pair[0], &pair[1]);
-        memcpy(xw + i, pair, sizeof pair);
-        return;
-    }
-#endif
-    for (; i < len; ++i) {  /* plain path, or a patch shorter than one group */
-        xw[i] = (int16_t)(raw[i] - in_zp);
-    }
-}
-
-/* The two pixels' widened patches: pixel 1's starts TG_CONV_PATCH elements after pixel 0's.
- * The union gives the word alignment the DSP loads need. */
-typedef union {
-    int16_t h[2][TG_CONV_PATCH];
-    uint32_t words[TG_CONV_PATCH];
-} tg_conv_patches_t;
-
-#if TG_CONV_DSP
-/* The 2x2 dot products over groups of four: acc0 += {x0.w0, x0.w1}, acc1 += {x1.w0, x1.w1};
- * x0 is a widened patch (lanes 0,2 / 1,3), x1 the one after it. groups >= 1. */
-static inline void tg_conv_dot_2x2_groups(const int16_t *x0, const int8_t *w0,
-                                          const int8_t *w1, int32_t groups, int32_t *acc0,
-                                          int32_t *acc1)
-{
-    int32_t a00 = acc0[0], a01 = acc0[1], a10 = acc1[0], a11 = acc1[1];
-    uint32_t xe, xo, wv, we;
-    /* Each weight word is widened once and meets both pixels; pixel 1's patch is reloaded
-     * (LDRD, one instruction) rather than kept, so the loop fits in twelve registers. */
-    __asm__ volatile(
-        "1:\n\t"
-        "ldrd    %[xe], %[xo], [%[x], %[p1]]\n\t"
-        "ldr     %[wv], [%[w0]], #4\n\t"
-        "sxtb16  %[we], %[wv]\n\t"
-        "sxtb16  %[wv], %[wv], ror #8\n\t"
-        "smlad   %[a10], %[xe], %[we], %[a10]\n\t"
-        "smlad   %[a10], %[xo], %[wv], %[a10]\n\t"
-        "ldrd    %[xe], %[xo], [%[x]], #8\n\t"
-        "smlad   %[a00], %[xe], %[we], %[a00]\n\t"
-        "smlad   %[a00], %[xo], %[wv], %[a00]\n\t"
-        "ldr     %[wv], [%[w1]], #4\n\t"
-        "sxtb16  %[we], %[wv]\n\t"
-        "sxtb16  %[wv], %[wv], ror #8\n\t"
-        "smlad   %[a01], %[xe], %[we], %[a01]\n\t"
-        "smlad   %[a01], %[xo], %[wv], %[a01]\n\t"
-        "ldrd    %[xe], %[xo], [%[x], %[p1b]]\n\t"
-        "smlad   %[a11], %[xe], %[we], %[a11]\n\t"
-        "smlad   %[a11], %[xo], %[wv], %[a11]\n\t"
-        "subs    %[n], %[n], #1\n\t"
-        "bne     1b"
-        : [a00] "+r"(a00), [a01] "+r"(a01), [a10] "+r"(a10), [a11] "+r"(a11),
-          [x] "+r"(x0), [w0] "+r"(w0), [w1] "+r"(w1), [n] "+r"(groups),
-          [xe] "=&r"(xe), [xo] "=&r"(xo), [wv] "=&r"(wv), [we] "=&r"(we)
-        : [p1] "i"(TG_CONV_PATCH * 2), [p1b] "i"(TG_CONV_PATCH * 2 - 8)
-        : "cc", "memory");
-    acc0[0] = a00;
-    acc0[1] = a01;
-    acc1[0] = a10;
-    acc1[1] = a11;
-}
-#endif
-
-/* GNU C's noinline, for loops that gcc -Os would spill when inlined into their callers. */
-#if defined(__GNUC__)
-#define TG_CONV_NOINLINE __attribute__((noinline))
-#else
-#define TG_CONV_NOINLINE
-#endif
-
-/* The plain-C 2x2 loop stays out of line (inlined into the row loop, gcc -Os spills it);
- * the assembly loop is inlined, its registers being its own anyway. */
-#if TG_CONV_DSP
-#define TG_CONV_DOT_LINKAGE static inline
-#else
-#define TG_CONV_DOT_LINKAGE static TG_CONV_NOINLINE
-#endif
-
-/* acc0 += {x0.w0, x0.w1}, acc1 += {x1.w0, x1.w1} over len patch elements (x0, x1: the
- * two pixels' patches). */
-TG_CONV_DOT_LINKAGE void tg_conv_dot_2x2(const tg_conv_patches_t *xw, const int8_t *w0,
-                                         const int8_t *w1, int32_t len, int32_t *acc0,
-                                         int32_t *acc1)
-{
-    const int16_t *x0 = xw->h[0];
-    int32_t a00, a01, a10, a11;
-    int32_t n;
-#if TG_CONV_DSP
-    if (len >= 4) {
-        tg_conv_dot_2x2_groups(x0, w0, w1, len >> 2, acc0, acc1);
-        if ((len & 3) != 0) {  /* the last partial group pairs with the weight word at len - 4 */
-            tg_conv_dot_2x2_groups(x0 + (len & ~3), w0 + len - 4, w1 + len - 4, 1, acc0, acc1);
-        }
-        return;
-    }
-#endif
-    a00 = acc0[0];
-    a01 = acc0[1];
-    a10 = acc1[0];
-    a11 = acc1[1];
-    for (n = len; n != 0; --n) {
-        const int32_t u0 = x0[0], u1 = x0[TG_CONV_PATCH], v0 = *w0++, v1 = *w1++;
-        ++x0;
-        a00 += u0 * v0;
-        a01 += u0 * v1;
-        a10 += u1 * v0;
-        a11 += u1 * v1;
-    }
-    acc0[0] = a00;
-    acc0[1] = a01;
-    acc1[0] = a10;
-    acc1[1] = a11;
-}
-
-/* The dot products of nc weight rows (k_len apart, from w) with both patches, two rows at a
- * time (a lone last row pairs with itself; its twin lands in the spare slot acc[nc]). */
-static TG_CONV_NOINLINE void tg_conv_dot_rows(const tg_conv_patches_t *xw, const int8_t *w,
-                                              int32_t nc, int32_t k_len, int32_t len,
-                                              int32_t *acc0, int32_t *acc1)
-{
-    int32_t j;
-    for (j = 0; j < nc; j += 2) {
-        const int8_t *w0 = w + j * k_len;
-        tg_conv_dot_2x2(xw, w0, j + 1 < nc ? w0 + k_len : w0, len, acc0 + j, acc1 + j);
-    }
-}
-
-/* Sum of len int8 values. */
-static int32_t tg_conv_sum(const int8_t *v, int32_t len)
-{
-    int32_t s = 0;
-    int32_t i;
-    for (i = 0; i < len; ++i) {
-        s += v[i];
-    }
-    return s;
-}
-
-/* What one call shares: sizes, and the channel block being worked on. */
-typedef struct {
-    const tg_conv_params_t *p;
-    const int8_t *x;
-    const int8_t *w;
-    const int32_t *bias;
-    void *y;
-    int32_t k_len, npix;
-    int32_t g, c0, nc;  /* group, first channel and channel count of the block */
-} tg_conv_job_t;
-
-/* Scratch of one call, on the stack. */
-typedef struct {
-    int8_t raw[TG_CONV_PATCH];
-    tg_conv_patches_t xw;
-    int32_t acc[2][TG_CONV_BLOCK + 1];  /* both pixels' sums; + 1: a lone last channel's twin */
-} tg_conv_scratch_t;
-
-/* The channels of the block for output pixels pix and pix1 (pix1 == pix for a lone pixel):
- * the sums build up in s->acc over the patch pieces, then go out one pixel at a time. */
-static void tg_conv_pixel_pair(const tg_conv_job_t *job, int32_t pix, int32_t pix1,
-                               tg_conv_scratch_t *s)
-{
-    const tg_conv_params_t *p = job->p;
-    const int32_t nc = job->nc, c0 = job->c0, k_len = job->k_len;
-    const int8_t *wb = job->w + c0 * k_len;  /* the block's first weight row */
-    int32_t xsum0 = 0, xsum1 = 0;  /* sums of x - in_zp, for a weight zero point */
-    int32_t k0, j;
-    memcpy(s->acc[0], job->bias + c0, (size_t)nc * sizeof(int32_t));
-    memcpy(s->acc[1], job->bias + c0, (size_t)nc * sizeof(int32_t));
-    s->acc[0][nc] = 0;
-    s->acc[1][nc] = 0;
-    for (k0 = 0; k0 < k_len; k0 += TG_CONV_PATCH) {
-        const int32_t len = k_len - k0 < TG_CONV_PATCH ? k_len - k0 : TG_CONV_PATCH;
-        const int8_t *src = tg_conv_patch(p, job->x, pix, job->g, k0, len, s->raw);
-        tg_conv_widen_patch(src, len, p->in_zp, s->xw.h[0]);
-        if (p->w_zp != NULL) {
-            xsum0 += tg_conv_sum(src, len) - len * p->in_zp;
-        }
-        src = tg_conv_patch(p, job->x, pix1, job->g, k0, len, s->raw);
-        tg_conv_widen_patch(src, len, p->in_zp, s->xw.h[1]);
-        if (p->w_zp != NULL) {
-            xsum1 += tg_conv_sum(src, len) - len * p->in_zp;
-        }
-        tg_conv_dot_rows(&s->xw, wb + k0, nc, k_len, len, s->acc[0], s->acc[1]);
-    }
-    if (p->w_zp != NULL) {
-        for (j = 0; j < nc; ++j) {
-            s->acc[0][j] -= p->w_zp[c0 + j] * xsum0;
-            s->acc[1][j] -= p->w_zp[c0 + j] * xsum1;
-        }
-    }
-    tg_conv_put(p->rq, job->y, pix * p->out_c + c0, s->acc[0], c0, nc);
-    tg_conv_put(p->rq, job->y, pix1 * p->out_c + c0, s->acc[1], c0, nc);
-}
-
-void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
-             const int32_t *bias, void *y)
-{
-    const int32_t out_pg = p->out_c / p->groups;
-    tg_conv_scratch_t scratch;
-    tg_conv_job_t job;
-    int32_t pix;
-    job.p = p;
-    job.x = x;
-    job.w = w;
-    job.bias = bias;
-    job.y = y;
-    job.k_len = p->k_h * p->k_w * (p->in_c / p->groups);
-    job.npix = p->n * p->out_h * p->out_w;
-    for (job.g = 0; job.g < p->groups; ++job.g) {
-        for (job.c0 = job.g * out_pg; job.c0 < (job.g + 1) * out_pg; job.c0 += TG_CONV_BLOCK) {
-            const int32_t left = (job.g + 1) * out_pg - job.c0;
-            job.nc = left < TG_CONV_BLOCK ? left : TG_CONV_BLOCK;
-            for (pix = 0; pix < job.npix; pix += 2) {
-                tg_conv_pixel_pair(&job, pix, pix + 1 < job.npix ? pix + 1 : pix, &scratch);
+    const int32_t in_pg = p->in_c / p->groups, out_pg = p->out_c / p->groups;
+    const int32_t k_len = p->k_h * p->k_w * in_pg, raw_len = (k_len + 3) & ~3;
+    const int32_t e = p->rq != NULL ? 1 : 4;  /* output element bytes */
+    const int32_t x_row = p->in_w * p->in_c, y_row = p->out_w * p->out_c * e;
+    const int32_t images = row0 == 0 && row1 == p->out_h ? p->n : 1;
+    const int32_t group_words = ((out_pg + 1) >> 1) * tg_mat_record_words(k_len);
+    const int fast = tg_mat_fast(p->rq);
+    int32_t *rows = (int32_t *)scratch;
+    int8_t *raw0 = (int8_t *)scratch + tg_conv_raw_offset(p), *raw1 = raw0 + raw_len;
+    int16_t *xw = (int16_t *)(void *)(raw1 + raw_len);
+    tg_mat_group_t grp;
+    int32_t b, r, ky, ox, g;
+    grp.rq = p->rq;
+    grp.k_len = k_len;
+    grp.nc = out_pg;
+    for (b = 0; b < images; ++b) {
+        const int32_t xb = b * p->in_h * x_row;
+        int8_t *yb = (int8_t *)y + b * p->out_h * y_row;
+        for (r = row0; r < row1; ++r) {
+            int8_t *yr = yb + (p->y_ring ? r % p->y_ring : r) * y_row;
+            /* The row addresses, once per output row: a ring wraps here, not per pixel. */
+            for (ky = 0; ky < p->k_h; ++ky) {
+                const int32_t iy = r * p->stride_h - p->pad_top + ky * p->dil_h;
+                rows[ky] = iy < 0 || iy >= p->in_h ? -1
+                                                   : xb + (p->x_ring ? iy % p->x_ring : iy) * x_row;
+            }
+            for (ox = 0; ox < p->out_w; ox += 2) {
+                const int32_t two = ox + 1 < p->out_w;
+                int8_t *y0 = yr + ox * p->out_c * e;
+                for (g = 0; g < p->groups; ++g) {
+                    int8_t *yg = y0 + g * out_pg * e;
+                    tg_conv_gather(p, x, rows, ox, g, raw0);
+                    if (two) {
+                        tg_conv_gather(p, x, rows, ox + 1, g, raw1);
+                    }
+                    tg_mat_widen2(raw0, two ? raw1 : raw0, k_len, p->in_zp, xw);
+                    grp.rec = p->pack + g * group_words;
+                    grp.c_base = g * out_pg;
+                    /* a lone last pixel writes its outputs twice (pair half 1 repeats it) */
+                    tg_mat_channels(&grp, xw, yg, two ? yg + p->out_c * e : yg, fast);
+                }
             }
         }
     }

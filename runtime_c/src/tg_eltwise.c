@@ -5,10 +5,9 @@
  * element is written after both of its inputs are read, which makes y == a or y == b safe
  * when that input is dense. Fixed-mode sums stay far inside int64: (a - a_zp) << left_shift
  * is below 2^29 for left_shift <= 20.
- * Fixed-mode Add of TG_ADD_TABLE_MIN elements or more first works out the rescaled input
- * mul_shift((v - zp) << left_shift, mult, shift) of all 256 byte values of each input (two
- * int32 tables on the stack), so each element costs two look-ups instead of two 64-bit
- * multiply-shifts; the values are the same ones, computed by the same expression.
+ * Fixed-mode Add reads two compile-time tables (tg_eltwise.h): per element two loads, one
+ * addition and one saturating shift, the same outputs as the 64-bit formula, which remains
+ * for parameters the tables cannot hold.
  */
 #include "tg_eltwise.h"
 
@@ -16,18 +15,9 @@
 #include <math.h>
 #endif
 
-#define TG_ADD_TABLE_MIN 512  /* elements from which building the two tables pays off */
-
-/* The rescaled inputs of fixed-mode Add for every byte value v, at index v + 128. */
-typedef struct {
-    int32_t a[256];
-    int32_t b[256];
-} tg_add_tables_t;
-
-/* What a row function gets: the params, and the Add tables when they were built (or NULL). */
+/* What a row function gets. */
 typedef struct {
     const tg_eltwise_params_t *p;
-    const tg_add_tables_t *tables;
 } tg_eltwise_job_t;
 
 typedef void (*tg_eltwise_row_fn)(const tg_eltwise_job_t *job, const int8_t *a, int32_t sa,
@@ -40,23 +30,58 @@ static int64_t tg_add_rescale(int32_t v, int32_t zp, int32_t left_shift, int32_t
     return tg_mul_shift((int64_t)(v - zp) * ((int64_t)1 << left_shift), mult, shift);
 }
 
-/* t[v + 128] = tg_add_rescale(v, ...) for all int8 v; returns the largest |t| (a value
- * outside int32, or INT32_MAX, means no table). */
-static int64_t tg_add_table(int32_t zp, int32_t left_shift, int32_t mult, int32_t shift,
-                            int32_t *t)
+/* Fixed Add through the tables over n elements, a and b sa and sb apart (0: the broadcast
+ * operand, looked up once); `clamps` is a constant at each call, so the int8 range case
+ * compiles to the saturating shift alone. */
+TG_INLINE void tg_add_tables_loop(const tg_eltwise_params_t *p, const int8_t *a, int32_t sa,
+                                  const int8_t *b, int32_t sb, int8_t *y, int32_t n,
+                                  int clamps)
 {
-    int64_t largest = 0;
+    const int32_t *ta = p->a_table, *tb = p->b_table;
+    const int32_t lo = p->act_min, hi = p->act_max;
+    int8_t *const end = y + n;
     int32_t v;
-    for (v = -128; v < 128; ++v) {
-        const int64_t r = tg_add_rescale(v, zp, left_shift, mult, shift);
-        const int64_t mag = r < 0 ? -r : r;
-        if (mag >= INT32_MAX) {
-            return INT32_MAX;
+#define TG_ADD_OUT(sum) \
+    (v = tg_sat8((sum) >> TG_ADD_TABLE_SHIFT), \
+     (int8_t)(!clamps ? v : (v < lo ? lo : (v > hi ? hi : v))))
+    if (sb == 0) {
+        const int32_t kb = tb[(uint8_t)b[0]];
+        for (; y != end; a += sa) {
+            *y++ = TG_ADD_OUT(ta[(uint8_t)*a] + kb);
         }
-        largest = mag > largest ? mag : largest;
-        t[v + 128] = (int32_t)r;
+    } else if (sa == 0) {
+        const int32_t ka = ta[(uint8_t)a[0]];
+        for (; y != end; b += sb) {
+            *y++ = TG_ADD_OUT(ka + tb[(uint8_t)*b]);
+        }
+    } else if (sa == 1 && sb == 1) {  /* dense: four at a time, then the rest */
+        int32_t k;
+        for (k = n >> 2; k != 0; --k) {
+            *y++ = TG_ADD_OUT(ta[(uint8_t)*a++] + tb[(uint8_t)*b++]);
+            *y++ = TG_ADD_OUT(ta[(uint8_t)*a++] + tb[(uint8_t)*b++]);
+            *y++ = TG_ADD_OUT(ta[(uint8_t)*a++] + tb[(uint8_t)*b++]);
+            *y++ = TG_ADD_OUT(ta[(uint8_t)*a++] + tb[(uint8_t)*b++]);
+        }
+        while (y != end) {
+            *y++ = TG_ADD_OUT(ta[(uint8_t)*a++] + tb[(uint8_t)*b++]);
+        }
+    } else {
+        for (; y != end; a += sa, b += sb) {
+            *y++ = TG_ADD_OUT(ta[(uint8_t)*a] + tb[(uint8_t)*b]);
+        }
     }
-    return largest;
+#undef TG_ADD_OUT
+}
+
+static void tg_add_row_tables(const tg_eltwise_job_t *job, const int8_t *a, int32_t sa,
+                              const int8_t *b, int32_t sb, int8_t *y, int32_t n)
+{
+    const tg_eltwise_params_t *p = job->p;
+    if (p->act_min == -128 && p->act_max == 127) {
+        tg_add_tables_loop(p, a, sa, b, sb, y, n, 0);
+    } else {
+        tg_add_tables_loop(p, a, sa, b, sb, y, n, 1);
+    }
 }
 
 static void tg_add_row_fixed(const tg_eltwise_job_t *job, const int8_t *a, int32_t sa,
@@ -67,16 +92,6 @@ static void tg_add_row_fixed(const tg_eltwise_job_t *job, const int8_t *a, int32
     const int32_t out_mult = p->out_mult, out_shift = p->out_shift, out_zp = p->out_zp;
     const int32_t act_min = p->act_min, act_max = p->act_max;
     int32_t i;
-    if (job->tables != NULL) {
-        const int32_t *ta = job->tables->a;
-        const int32_t *tb = job->tables->b;
-        for (i = 0; i < n; ++i) {
-            const int32_t sum = ta[a[i * sa] + 128] + tb[b[i * sb] + 128];  /* fits: tg_add */
-            y[i] = (int8_t)tg_clamp32(out_zp + tg_mul_shift(sum, out_mult, out_shift),
-                                      act_min, act_max);
-        }
-        return;
-    }
     for (i = 0; i < n; ++i) {
         const int64_t sum = tg_add_rescale(a[i * sa], p->a_zp, p->left_shift, p->a_mult,
                                            p->a_shift)
@@ -160,30 +175,20 @@ static void tg_eltwise_run(const tg_eltwise_job_t *job, const int8_t *a, const i
 void tg_add(const tg_eltwise_params_t *p, const int8_t *a, const int8_t *b, int8_t *y)
 {
     tg_eltwise_job_t job;
-    tg_add_tables_t tables;
     job.p = p;
-    job.tables = NULL;
 #if TG_WITH_FLOAT_REQUANT
     if (p->use_float) {
         tg_eltwise_run(&job, a, b, y, tg_add_row_float);
         return;
     }
 #endif
-    /* Tables only when the sum of two entries stays inside int32 (one 32-bit multiply). */
-    if (p->shape[0] * p->shape[1] * p->shape[2] * p->shape[3] >= TG_ADD_TABLE_MIN
-        && tg_add_table(p->a_zp, p->left_shift, p->a_mult, p->a_shift, tables.a)
-           + tg_add_table(p->b_zp, p->left_shift, p->b_mult, p->b_shift, tables.b)
-           < INT32_MAX) {
-        job.tables = &tables;
-    }
-    tg_eltwise_run(&job, a, b, y, tg_add_row_fixed);
+    tg_eltwise_run(&job, a, b, y, p->a_table != NULL ? tg_add_row_tables : tg_add_row_fixed);
 }
 
 void tg_mul(const tg_eltwise_params_t *p, const int8_t *a, const int8_t *b, int8_t *y)
 {
     tg_eltwise_job_t job;
     job.p = p;
-    job.tables = NULL;
 #if TG_WITH_FLOAT_REQUANT
     if (p->use_float) {
         tg_eltwise_run(&job, a, b, y, tg_mul_row_float);

@@ -16,12 +16,7 @@
 
 #include <string.h>
 
-#if defined(__ARM_FEATURE_DSP) && defined(__ARM_FEATURE_SIMD32) && defined(__GNUC__) \
-    && defined(__OPTIMIZE__)
-#define TG_FC_DSP 1
-#else
-#define TG_FC_DSP 0
-#endif
+#define TG_FC_DSP TG_DSP  /* tg_arm_dsp.h: off with --kernels portable */
 
 /* Kept out of line: inlined into the output loop, gcc -Os spills its live values. */
 #if defined(__GNUC__)

@@ -30,9 +30,10 @@ HOST_DEFINES = {"TG_WITH_FLOAT_REQUANT": "1"}
 # tg_requant.h, field for field.
 REQUANT_CDEF = """
 typedef struct {
-    const int32_t *mult;
-    const int8_t *shift;
+    const int32_t *chan;
     const float *scale;
+    int32_t form;
+    int32_t pre;
     int32_t out_zp;
     int32_t act_min;
     int32_t act_max;
@@ -96,15 +97,21 @@ class Marshal:
         self._keep.append(out)
         return out, self.ffi.cast("void *", self.ffi.from_buffer(out))
 
+    def scratch(self, nbytes: int):
+        """A scratch pointer that is 4-byte aligned but not 8 (the least the plan promises)."""
+        buf = np.zeros(nbytes // 8 + 2, dtype=np.int64)
+        self._keep.append(buf)
+        return self.ffi.cast("char *", self.ffi.from_buffer(buf)) + 4
+
     def requant(self, rq: Requant | None):
-        """tg_requant_t * for rq (NULL for None); float mode leaves mult/shift NULL."""
+        """tg_requant_t * for rq (NULL for None), in the form rq says (float: chan NULL)."""
         if rq is None:
             return self.ffi.NULL
         c = self.ffi.new("tg_requant_t *")
         self._keep.append(c)
-        c.mult = self.optional_array(rq.mult, np.int32, "int32_t")
-        c.shift = self.optional_array(rq.shift, np.int8, "int8_t")
+        c.chan = self.optional_array(rq.chan, np.int32, "int32_t")
         c.scale = self.optional_array(rq.scale, np.float32, "float")
+        c.form, c.pre = rq.form, rq.pre
         c.out_zp, c.act_min, c.act_max = rq.out_zp, rq.act_min, rq.act_max
         return c
 
@@ -309,9 +316,8 @@ def c_requant(name: str, rq: Requant | None) -> tuple[str, str]:
     """(definitions, expression) of a `const tg_requant_t *` for rq (NULL for None)."""
     if rq is None:
         return "", "NULL"
-    mult, mult_expr = c_optional_array(f"{name}_mult", "int32_t", rq.mult)
-    shift, shift_expr = c_optional_array(f"{name}_shift", "int8_t", rq.shift)
+    chan, chan_expr = c_optional_array(f"{name}_chan", "int32_t", rq.chan)
     scale, scale_expr = c_optional_array(f"{name}_scale", "float", rq.scale)
-    struct = (f"static const tg_requant_t {name} = {{{mult_expr}, {shift_expr}, {scale_expr}, "
-              f"{rq.out_zp}, {rq.act_min}, {rq.act_max}}};\n")
-    return mult + shift + scale + struct, f"&{name}"
+    struct = (f"static const tg_requant_t {name} = {{{chan_expr}, {scale_expr}, {rq.form}, "
+              f"{rq.pre}, {rq.out_zp}, {rq.act_min}, {rq.act_max}}};\n")
+    return chan + scale + struct, f"&{name}"

@@ -29,7 +29,9 @@ from tinygen.reference.conv import (
     conv,
     conv_accumulators,
     conv_output_size,
+    conv_scratch_bytes,
     dwconv,
+    with_conv_pack,
 )
 from tinygen.reference.requant import make_requant, mul_shift
 
@@ -46,9 +48,11 @@ typedef struct {
     int32_t in_zp;
     const int32_t *w_zp;
     const tg_requant_t *rq;
+    int32_t x_ring, y_ring;
+    const int32_t *pack;
 } tg_conv_params_t;
-void tg_conv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
-             const int32_t *bias, void *y);
+void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
+             int32_t row0, int32_t row1);
 void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
                const int32_t *bias, void *y);
 """
@@ -64,12 +68,19 @@ def run_c_conv(kernel: str, x, w, bias, p: ConvParams) -> np.ndarray:
     """Run tg_conv or tg_dwconv on numpy arrays; int8 output with p.rq, else int32."""
     ffi, lib = kernel_lib(["tg_conv.c"], REQUANT_CDEF + CONV_CDEF)
     m = Marshal(ffi)
+    with_conv_pack(p, w, bias)  # what tg_conv reads; tg_dwconv takes w and bias
     params = m.struct("tg_conv_params_t", **{f: int(getattr(p, f)) for f in SCALAR_FIELDS},
-                      w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq))
+                      w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq),
+                      pack=m.array(p.pack, np.int32, "int32_t"))
     y, y_ptr = m.output((p.n, p.out_h, p.out_w, p.out_c),
                         np.int32 if p.rq is None else np.int8)
-    getattr(lib, kernel)(params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
-                         m.array(bias, np.int32, "int32_t"), y_ptr)
+    if kernel == "tg_conv":  # the row-range call (DEVELOPERS.md, "Kernel calls")
+        args = [params, m.array(x, np.int8, "int8_t"), y_ptr,
+                m.scratch(conv_scratch_bytes(p)), 0, p.out_h]
+    else:
+        args = [params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
+                m.array(bias, np.int32, "int32_t"), y_ptr]
+    getattr(lib, kernel)(*args)
     return y
 
 
@@ -423,14 +434,22 @@ def conv_case_c(tag: str, p: ConvParams, x, w, bias) -> tuple[str, list[str]]:
     """C definitions of one case and the kernel calls that dump its outputs."""
     w_zp_def, w_zp_expr = c_optional_array(f"{tag}_w_zp", "int32_t", p.w_zp)
     rq_def, rq_expr = c_requant(f"{tag}_rq", p.rq)
+    with_conv_pack(p, w, bias)
     fields = ", ".join(str(int(getattr(p, f))) for f in SCALAR_FIELDS)
-    defs = (c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_w", "int8_t", w)
-            + c_array(f"{tag}_bias", "int32_t", bias) + w_zp_def + rq_def
-            + f"static const tg_conv_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}}};\n")
+    wb = (c_array(f"{tag}_w", "int8_t", w) + c_array(f"{tag}_bias", "int32_t", bias)
+          if p.groups == p.in_c else "")  # tg_dwconv's arguments; tg_conv reads the pack
+    defs = (c_array(f"{tag}_x", "int8_t", x) + wb + c_array(f"{tag}_pack", "int32_t", p.pack)
+            + w_zp_def + rq_def
+            + f"static const tg_conv_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}, "
+              f"0, 0, {tag}_pack}};\n")
     out_bytes = p.n * p.out_h * p.out_w * p.out_c * (1 if p.rq is not None else 4)
-    kernels = ["tg_conv"] + (["tg_dwconv"] if p.groups == p.in_c else [])
-    calls = [f"{k}(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y); "
-             f"tg_test_dump(\"{tag}_{k}\", y, {out_bytes});" for k in kernels]
+    assert conv_scratch_bytes(p) <= 8 * 1024 - 8
+    # scratch 4 bytes into an int64 array: 4-byte aligned, not 8 (the least the plan gives)
+    calls = [f"tg_conv(&{tag}_p, {tag}_x, y, (int32_t *)scratch + 1, 0, {p.out_h}); "
+             f"tg_test_dump(\"{tag}_tg_conv\", y, {out_bytes});"]
+    if p.groups == p.in_c:
+        calls.append(f"tg_dwconv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y); "
+                     f"tg_test_dump(\"{tag}_tg_dwconv\", y, {out_bytes});")
     return defs, calls
 
 
@@ -457,7 +476,8 @@ def test_conv_on_cortex_m_matches_reference(core, tmp_path):
             expected[f"c{i}_tg_dwconv"] = y.tobytes()
     main_c = ('#include <stddef.h>\n#include "tg_conv.h"\n'
               "void tg_test_dump(const char *tag, const void *data, int32_t bytes);\n"
-              + "".join(defs) + "int main(void)\n{\n    static int32_t y[4096];\n    "
+              + "".join(defs) + "int main(void)\n{\n    static int32_t y[4096];\n"
+              "    static int64_t scratch[1024];\n    "
               + "\n    ".join(calls) + "\n    return 0;\n}\n")
     elf = build_cortex_m(["tg_conv.c"], main_c, core, tmp_path)
     # The M4 build must really take the SMLAD path, the M3 build must not.

@@ -12,6 +12,7 @@ from onnx import TensorProto, helper
 
 from tests.runtime_c.kernel_lib import Marshal, kernel_lib
 from tinygen.reference.eltwise import (
+    ADD_TABLE_SHIFT,
     EltwiseParams,
     add,
     broadcast_layout,
@@ -38,6 +39,7 @@ typedef struct {
     float bias;
     int32_t raw_offset;
     int32_t a_bcast_inner;
+    const int32_t *a_table, *b_table;
 } tg_eltwise_params_t;
 void tg_add(const tg_eltwise_params_t *p, const int8_t *a, const int8_t *b, int8_t *y);
 void tg_mul(const tg_eltwise_params_t *p, const int8_t *a, const int8_t *b, int8_t *y);
@@ -62,9 +64,11 @@ PATTERNS = [
 ]
 
 
-def c_struct_fields(p: EltwiseParams) -> dict:
+def c_struct_fields(p: EltwiseParams, m: Marshal) -> dict:
     fields = dataclasses.asdict(p)
     fields.pop("out_shape")
+    for name in ("a_table", "b_table"):
+        fields[name] = m.optional_array(fields[name], np.int32, "int32_t")
     return fields
 
 
@@ -72,7 +76,7 @@ def run_c(op: str, p: EltwiseParams, a, b, alias: str | None = None) -> np.ndarr
     """tg_add/tg_mul on flat int8 arrays; alias "a"/"b" writes the result over that input."""
     ffi, lib = kernel_lib(["tg_eltwise.c"], ELTWISE_CDEF)
     m = Marshal(ffi)
-    params = m.struct("tg_eltwise_params_t", **c_struct_fields(p))
+    params = m.struct("tg_eltwise_params_t", **c_struct_fields(p, m))
     a = np.ascontiguousarray(a, dtype=np.int8).reshape(-1).copy()
     b = np.ascontiguousarray(b, dtype=np.int8).reshape(-1).copy()
     a_ptr = ffi.cast("int8_t *", ffi.from_buffer(a))
@@ -122,6 +126,27 @@ def test_c_matches_reference(op, mode, pattern):
                  source_dtype="uint8" if trial == 1 else "int8", act_min=act[0], act_max=act[1])
         a, b = random_inputs(rng, a_shape, b_shape)
         np.testing.assert_array_equal(run_c(op, p, a, b), ref(p, a, b))
+        if p.a_table is not None:  # the 64-bit path the C keeps for parameters without tables
+            q = dataclasses.replace(p, a_table=None, b_table=None)
+            np.testing.assert_array_equal(run_c(op, q, a, b), ref(p, a, b))
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_add_tables_equal_the_formula_on_every_input_pair(seed):
+    """All 65536 (a, b) byte pairs: the table form is the fixed-mode formula itself, for
+    scales over orders of magnitude, extreme zero points and narrowed clamps."""
+    rng = np.random.default_rng(4000 + seed)
+    s_a, z_a, s_b, z_b, s_y, z_y = random_quant(rng, "add", ties=seed % 4 == 3)
+    lo = int(rng.integers(-128, 20)) if seed % 3 == 0 else -128
+    hi = int(rng.integers(lo, 128)) if seed % 5 == 0 else 127
+    p = make_add_params((65536,), (65536,), s_a, z_a, s_b, z_b, s_y, z_y, act_min=lo,
+                        act_max=hi)
+    assert p.a_table is not None
+    a = np.repeat(np.arange(-128, 128), 256).astype(np.int8)
+    b = np.tile(np.arange(-128, 128), 256).astype(np.int8)
+    total = p.a_table[a.view(np.uint8)].astype(np.int64) + p.b_table[b.view(np.uint8)]
+    assert np.abs(total).max() < 2**31
+    np.testing.assert_array_equal(np.clip(total >> ADD_TABLE_SHIFT, lo, hi), add(p, a, b))
 
 
 @pytest.mark.parametrize("mode", ["fixed", "float"])

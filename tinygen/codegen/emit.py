@@ -29,6 +29,7 @@ from tinygen.errors import TinygenError
 from tinygen.ir import storage_perm
 from tinygen.kernels import KERNELS
 from tinygen.passes.layout import storage_data
+from tinygen.plan.lifetimes import scratch_name
 from tinygen.resources import runtime_dir, templates_dir
 
 RUNTIME = runtime_dir()
@@ -74,6 +75,15 @@ class TreeWriter:
             f"{self.P}_region_{buf.region}.bytes"
         return f"({base} + {off})" if off else base
 
+    def scratch_ptr(self, k: int) -> str:
+        """void * expression of op k's scratch buffer, or NULL when it needs none."""
+        buf = self.plan.buffers.get(scratch_name(k))
+        if buf is None:
+            return "NULL"
+        base = "a" if buf.region in (None, self.plan.regions[0].name) else \
+            f"{self.P}_region_{buf.region}.bytes"
+        return f"(void *)({base} + {buf.offset})" if buf.offset else f"(void *){base}"
+
     def const_array(self, name: str) -> str:
         if name not in self.const_names:
             t = self.g.tensors[name]
@@ -116,6 +126,8 @@ class TreeWriter:
                     f"  tg_concat(&{pname}, {arr}, {self.typed(call.args[-1], False)}); }}"]
         args = [self.typed(n, True) if n else "NULL" for n in call.args[:-1]]
         args.append(self.typed(call.args[-1], False))
+        if kern.rows:  # spatial kernel: scratch, then the output rows (here all of them)
+            args += [self.scratch_ptr(k), "0", str(call.params.out_h)]
         if call.batch > 1:  # the same call on consecutive slices
             args = [f"{a} + {st} * b" if st and a != "NULL" else a
                     for a, st in zip(args, call.batch_step, strict=True)]
@@ -213,15 +225,20 @@ def config_needs(c: Compiled) -> list[str]:
     """The tg_config.h switches this model's kernels must have on (DEVELOPERS.md, "Kernel
     configuration"): <prefix>.c refuses to compile against kernels configured without them,
     and a folder shared by several models turns on every switch one of them needs."""
-    return ["TG_WITH_FLOAT_REQUANT"] if c.options.requant == "float" else []
+    needs = ["TG_WITH_FLOAT_REQUANT"] if c.options.requant == "float" else []
+    if c.options.kernels == "portable":  # same outputs, plain C: safe for every model
+        needs.append("TG_KERNELS_PORTABLE")
+    return needs
 
 
 # Private headers a kernel family's C file includes besides its own header.
-PRIVATE_HEADERS = {"conv": ("tg_window.h",), "pool": ("tg_window.h",)}
+PRIVATE_HEADERS = {"conv": ("tg_mat.h", "tg_window.h"), "pwconv": ("tg_mat.h",),
+                   "pool": ("tg_window.h",)}
 
 
 def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
-    files = [("tg_requant.h", RUNTIME / "include" / "tg_requant.h")]
+    files = [("tg_requant.h", RUNTIME / "include" / "tg_requant.h"),
+             ("tg_arm_dsp.h", RUNTIME / "include" / "tg_arm_dsp.h")]
     private = sorted({h for f in families for h in PRIVATE_HEADERS.get(f, ())})
     files += [(h, RUNTIME / "include" / h) for h in private]
     for f in sorted(families):

@@ -13,9 +13,11 @@ import numpy as np
 
 from tinygen.errors import TinygenError
 from tinygen.ir import Graph, Op, Tensor, storage_perm
-from tinygen.reference.conv import ConvParams
+from tinygen.passes.layout import storage_data
+from tinygen.reference.conv import ConvParams, conv_pack, with_conv_pack
 from tinygen.reference.fc import FcParams
-from tinygen.reference.requant import Requant, make_requant, quantize_multiplier
+from tinygen.reference.pwconv import PwConvParams, pack_weights, with_pack
+from tinygen.reference.requant import Requant, choose_form, make_requant, quantize_multiplier
 
 
 @dataclass
@@ -67,8 +69,18 @@ def _conv(graph: Graph, op: Op, mode: str) -> KernelCall:
                    pad_top=pt, pad_left=pl, groups=op.attrs["group"],
                    in_zp=x.quant.scalar_zp(), w_zp=_w_zp(w, cout), rq=rq)
     depthwise = p.groups == p.in_c and p.groups > 1
-    return KernelCall("tg_dwconv" if depthwise else "tg_conv", "conv", p,
-                      [x.name, w.name, b.name, y.name])
+    args = [x.name, w.name, b.name, y.name]
+    if (kh, kw) == (1, 1) and p.groups == 1 and not any(op.attrs["pads"]):
+        pw = PwConvParams(n=p.n, in_h=p.in_h, in_w=p.in_w, in_c=p.in_c, out_h=p.out_h,
+                          out_w=p.out_w, out_c=p.out_c, stride_h=sh, stride_w=sw,
+                          in_zp=p.in_zp, w_zp=p.w_zp, rq=rq)
+        # weights and bias travel in the params' pack (flash), so the call takes x only
+        with_pack(pw, storage_data(w), b.data)
+        return KernelCall("tg_pwconv", "pwconv", pw, [x.name, y.name])
+    if depthwise:
+        return KernelCall("tg_dwconv", "conv", p, args)
+    with_conv_pack(p, storage_data(w), b.data)  # tg_conv reads its weights from the pack
+    return KernelCall("tg_conv", "conv", p, [x.name, y.name])
 
 
 def _fc(graph: Graph, op: Op, mode: str) -> KernelCall:
@@ -266,4 +278,24 @@ def lower_params(graph: Graph, mode: str, tables: str = "onnx") -> Graph:
     return graph
 
 
-__all__ = ["lower_params", "KernelCall", "quantize_multiplier", "logical_strides"]
+def choose_requant_forms(graph: Graph) -> Graph:
+    """Pick each conv/fc requantization's C form for the layer's proven accumulator bound
+    (a tighter bound than the int32 worst case may allow the pre-shifted fast form).
+
+    Needs: check_accumulators (op.attrs["acc_bound"]). Leaves: rq.form/chan/pre final, and
+    tg_pwconv's pack rebuilt with them.
+    """
+    for op in graph.ops:
+        call = op.attrs.get("call")
+        rq = getattr(call.params, "rq", None) if call else None
+        if isinstance(rq, Requant) and "acc_bound" in op.attrs:
+            choose_form(rq, op.attrs["acc_bound"])
+            if isinstance(call.params, PwConvParams):
+                call.params.pack = pack_weights(call.params)
+            elif call.func == "tg_conv":
+                call.params.pack = conv_pack(call.params)
+    return graph
+
+
+__all__ = ["lower_params", "choose_requant_forms", "KernelCall", "quantize_multiplier",
+           "logical_strides"]

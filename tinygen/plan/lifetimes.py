@@ -4,13 +4,16 @@ A buffer is one piece of memory shared by a tensor, the views of it (Reshape, Fl
 and, when in-place execution is allowed, the outputs of kernels that may overwrite their
 input (tables, additions) at the input's last use. Its lifetime is the closed step range
 [first, last] from the op that writes it to the last op that reads it; graph inputs are
-written at step -1 and graph outputs read at step len(ops).
+written at step -1 and graph outputs read at step len(ops). A kernel call that needs
+scratch (Kernel.scratch_bytes) gets a buffer of its own, "scratch:<op index>", live at that
+op's step only and holding no tensor.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 
 from tinygen.ir import Graph
+from tinygen.kernels import KERNELS
 
 # Kernels whose output may overwrite an input the op reads last (see the kernel headers).
 INPLACE_OK = {"lut": (0,), "add": (0, 1), "mul": (0, 1)}
@@ -26,6 +29,7 @@ class Buffer:
     external: str | None = None  # "input:i" / "output:i" with --io external
     region: str | None = None
     offset: int | None = None
+    scratch_of: int | None = None  # op index whose kernel call uses this buffer as scratch
 
     def overlaps(self, other: Buffer) -> bool:
         return not (self.last < other.first or other.last < self.first)
@@ -58,6 +62,10 @@ def build_buffers(graph: Graph, order: list[int], inplace: bool, io: str
         for t in op.inputs:
             if t in owner:
                 buffers[owner[t]].last = max(buffers[owner[t]].last, s)
+        scratch = scratch_bytes(op)
+        if scratch:
+            name = scratch_name(k)
+            buffers[name] = Buffer(name, scratch, s, s, [], scratch_of=k)
         out = op.outputs[0]
         if op.kind == "view":
             src = owner[op.inputs[0]]
@@ -96,6 +104,18 @@ def build_buffers(graph: Graph, order: list[int], inplace: bool, io: str
         for t in buf.tensors:
             buf.last = max(buf.last, last_use.get(t, buf.first))
     return buffers, owner
+
+
+def scratch_name(op_index: int) -> str:
+    return f"scratch:{op_index}"
+
+
+def scratch_bytes(op) -> int:
+    """Arena bytes of scratch the op's kernel call needs (0 for none)."""
+    call = op.attrs.get("call")
+    if call is None:
+        return 0
+    return int(KERNELS[call.func].scratch_bytes(call.params))
 
 
 def lower_bound(buffers: dict[str, Buffer], steps: int) -> int:

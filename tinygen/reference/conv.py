@@ -5,7 +5,7 @@ int8, bias [out_c] int32, y [n][out_h][out_w][out_c]. 1-D convolution is in_h = 
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -41,6 +41,35 @@ class ConvParams:
     in_zp: int = 0
     w_zp: np.ndarray | None = None
     rq: Requant | None = None
+    x_ring: int = 0  # rows held in a ring, 0: all (DEVELOPERS.md, "Kernel calls")
+    y_ring: int = 0
+    pack: np.ndarray | None = None  # tg_conv: conv_pack(self), what the C reads; else None
+    # Python-side only (compare=False keeps them out of the C struct): tg_conv's layer
+    w: np.ndarray | None = field(default=None, compare=False, repr=False)
+    bias: np.ndarray | None = field(default=None, compare=False, repr=False)
+
+
+def conv_scratch_bytes(p: ConvParams) -> int:
+    """Arena scratch of one tg_conv call (tg_conv.h): row offsets, two raw patches, pair
+    buffer."""
+    k_len = p.k_h * p.k_w * (p.in_c // p.groups)
+    return 4 * p.k_h + 6 * ((k_len + 3) // 4 * 4)
+
+
+def conv_pack(p: ConvParams) -> np.ndarray:
+    """The pack tg_conv reads (tg_mat.h): p.w's rows [out_c][k_h*k_w*in_c/groups], p.bias,
+    p.w_zp and p.rq's fast constants, ceil(out_c/groups / 2) records per group."""
+    from tinygen.reference.mat import pack_matrix
+    w = np.asarray(p.w).reshape(p.out_c, -1)
+    return pack_matrix(w, p.bias, p.w_zp, p.rq, p.groups)
+
+
+def with_conv_pack(p: ConvParams, w: np.ndarray, bias: np.ndarray) -> ConvParams:
+    """p with tg_conv's weights and bias attached and its pack built; returns p."""
+    p.w = np.asarray(w, dtype=np.int8).reshape(p.out_c, p.k_h, p.k_w, p.in_c // p.groups)
+    p.bias = np.asarray(bias, dtype=np.int32).reshape(p.out_c)
+    p.pack = conv_pack(p)
+    return p
 
 
 def conv_output_size(in_size: int, k: int, stride: int, dil: int, pad_begin: int,

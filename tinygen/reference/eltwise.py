@@ -6,7 +6,9 @@ the rank-4 broadcast walk. Zero points are int8-domain values.
 
 Fixed mode is integer only. Add brings both inputs to a common high-precision domain
 ((x - zp) << left_shift, scaled by s_x / (2 max(s_a, s_b)); common practice) and requantizes
-the sum once; Mul requantizes the product of the centred inputs once.
+the sum once; Mul requantizes the product of the centred inputs once. The C runs fixed Add
+from two compile-time tables (add_tables) that give the very same outputs with one 32-bit
+addition and one shift per element.
 
 Float mode reproduces onnxruntime's CPU kernels on x86-64 (MLAS), checked bit for bit in
 tests/runtime_c/test_eltwise.py. With X the operand whose term is applied last, Y the other
@@ -28,6 +30,7 @@ from tinygen.reference.requant import mul_shift, quantize_multiplier
 
 INT8_MIN, INT8_MAX = -128, 127
 ADD_LEFT_SHIFT = 20
+ADD_TABLE_SHIFT = 10  # TG_ADD_TABLE_SHIFT: y = clamp((a_table[a] + b_table[b]) >> 10)
 f32 = np.float32
 
 
@@ -57,6 +60,8 @@ class EltwiseParams:
     bias: float = 0.0
     raw_offset: int = 0
     a_bcast_inner: int = 0
+    a_table: np.ndarray | None = None  # fixed Add: add_tables(), indexed by the input byte
+    b_table: np.ndarray | None = None
     out_shape: tuple[int, ...] = field(default=(), compare=False)  # logical, not in C
 
 
@@ -138,6 +143,9 @@ def make_add_params(a_shape, b_shape, s_a: float, z_a: int, s_b: float, z_b: int
         p.a_mult, p.a_shift = quantize_multiplier(s_a / twice_max)
         p.b_mult, p.b_shift = quantize_multiplier(s_b / twice_max)
         p.out_mult, p.out_shift = quantize_multiplier(twice_max / ((1 << ADD_LEFT_SHIFT) * s_y))
+        tables = add_tables(p)
+        if tables is not None:
+            p.a_table, p.b_table = tables
         return p
     if mode != "float":
         raise ValueError(f"mode must be 'fixed' or 'float', not {mode!r}")
@@ -153,6 +161,50 @@ def make_add_params(a_shape, b_shape, s_a: float, z_a: int, s_b: float, z_b: int
     term = fma_f32(rx, f32(zx + off), f32(f32(ry) * f32(zy + off)))
     p.bias = float(f32(f32(z_y + off) - term))
     return p
+
+
+def _byte_values() -> np.ndarray:
+    """The int8 value of each byte 0..255, the tables' index order (the C indexes by the
+    input byte read as unsigned)."""
+    u = np.arange(256, dtype=np.int64)
+    return np.where(u < 128, u, u - 256)
+
+
+def add_tables(p: EltwiseParams) -> tuple[np.ndarray, np.ndarray] | None:
+    """Two int32 tables with clamp((A[a] + B[b]) >> 10) equal to fixed Add for all a, b.
+
+    With S = a' + b' (the rescaled inputs) the contract is clamp(floor((A64 + B64) / 2^s))
+    for A64 = a'*M + 2^(s-1) + out_zp*2^s and B64 = b'*M (M = out_mult, s = out_shift).
+    Split A64 = qa*2^s + ra and B64 = qb*2^s + rb with 0 <= ra, rb < 2^s: the floor is
+    qa + qb + carry, carry = [ra >= 2^s - rb]. That comparison keeps its answer when ra and
+    2^s - rb are replaced by their ranks u, t (from 0) among the at most 512 distinct values
+    of both; with A = qa*2^10 + u and B = qb*2^10 + 2^10 - t, u + 2^10 - t lies in
+    [1, 2^11) and reaches 2^10 exactly when u >= t, so the shift by 10 adds the carry.
+    qa (then qb) is clipped to the range past which the clamp decides alone. None when
+    the clipped quotients would not keep A + B inside int32.
+    """
+    if p.use_float:
+        return None
+    s = int(p.out_shift)
+    one = 1 << s
+    v = _byte_values()
+    ra_ = [int(x) for x in mul_shift((v - p.a_zp) << p.left_shift, p.a_mult, p.a_shift)]
+    rb_ = [int(x) for x in mul_shift((v - p.b_zp) << p.left_shift, p.b_mult, p.b_shift)]
+    a64 = [x * int(p.out_mult) + (one >> 1) + (int(p.out_zp) << s) for x in ra_]
+    b64 = [x * int(p.out_mult) for x in rb_]
+    qa, ra = zip(*(divmod(x, one) for x in a64), strict=True)
+    qb, rb = zip(*(divmod(x, one) for x in b64), strict=True)
+    rank = {val: i for i, val in enumerate(sorted(set(ra) | {one - r for r in rb}))}
+    lo, hi = int(p.act_min), int(p.act_max)
+    qa = [min(max(q, lo - max(qb) - 2), hi - min(qb) + 1) for q in qa]
+    qb = [min(max(q, lo - max(qa) - 2), hi - min(qa) + 1) for q in qb]
+    if max(abs(q) for q in qa + qb) >= 1 << 19:
+        return None
+    k = 1 << ADD_TABLE_SHIFT
+    ta = np.array([q * k + rank[r] for q, r in zip(qa, ra, strict=True)], dtype=np.int64)
+    tb = np.array([q * k + k - rank[one - r] for q, r in zip(qb, rb, strict=True)],
+                  dtype=np.int64)
+    return ta.astype(np.int32), tb.astype(np.int32)
 
 
 def make_mul_params(a_shape, b_shape, s_a: float, z_a: int, s_b: float, z_b: int, s_y: float,
@@ -171,6 +223,21 @@ def make_mul_params(a_shape, b_shape, s_a: float, z_a: int, s_b: float, z_b: int
     p.ab_ratio = float(f32(f32(s_a) * f32(s_b)) / f32(s_y))
     p.bias = float(f32(z_y + off))
     return p
+
+
+def overlap_margin(p: EltwiseParams) -> int | None:
+    """tg_add/tg_mul read element i of a before writing y[i] (tg_eltwise.h): y may start at
+    a's start or below it when a is dense with the output's shape; otherwise disjoint."""
+    dense = [int(v) for v in p.a_stride] == _dense_strides(p.shape)
+    return 0 if dense else None
+
+
+def _dense_strides(shape) -> list[int]:
+    out, acc = [0] * 4, 1
+    for i in range(3, -1, -1):
+        out[i] = acc if shape[i] != 1 else 0
+        acc *= int(shape[i])
+    return out
 
 
 def _gather(p: EltwiseParams, a: np.ndarray, b: np.ndarray):

@@ -139,6 +139,10 @@ def buffer_rows(c) -> list[BufferRow]:
             writers[plan.owner[t]].append(str(s))
     for io in g.outputs:
         readers[plan.owner[io.name]].append("caller")
+    for b in plan.buffers.values():
+        if b.scratch_of is not None:  # a kernel's scratch: written and read at its step
+            writers[b.name].append(str(b.first))
+            readers[b.name].append(str(b.first))
     bases = region_bases(plan)
     arena = sorted((b for b in plan.buffers.values() if b.external is None),
                    key=lambda b: (b.first, b.last, b.name))
