@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from tinygen.errors import TinygenError
-from tinygen.frontend import pointwise, qdq, qop
+from tinygen.frontend import pointwise, qdq, qop, spec
 from tinygen.frontend.build import Builder
 from tinygen.frontend.onnx_loader import ModelView, load_model
 from tinygen.frontend.ops import emit_view, same_quant
@@ -134,6 +134,7 @@ class Lowering:
     # -- the walk -----------------------------------------------------------------------
     def run(self) -> Graph:
         v = self.view
+        spec.check_nodes(v)  # every parameter against the operator spec, before any use
         for name, arr in v.consts.items():
             self.env[name] = Const(arr)
         for name in v.inputs:

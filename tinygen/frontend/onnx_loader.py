@@ -16,6 +16,7 @@ import onnx
 from onnx import helper, numpy_helper, shape_inference
 
 from tinygen.errors import TinygenError
+from tinygen.frontend import spec as model_spec
 
 # Ops whose output is folded when every input is a constant: shape arithmetic that
 # exporters leave in graphs (Shape -> Gather -> Concat -> Reshape) and plain constants.
@@ -39,6 +40,8 @@ class ModelView:
     inputs: list[str]
     outputs: list[str]
     opset: dict[str, int] = field(default_factory=dict)
+    # initializers a caller may replace at run time (also graph inputs): never constants
+    overridable: set[str] = field(default_factory=set)
 
     def attr(self, node: onnx.NodeProto, name: str, default=None):
         for a in node.attribute:
@@ -190,6 +193,7 @@ def _fold(node: onnx.NodeProto, consts: dict[str, np.ndarray], opset: int):
 def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
     """Read, check and fold an ONNX model; every tensor gets a static shape where known."""
     model, raw = _read_model(path)
+    model_spec.check_graph(model, path)
     pinned = parse_input_shapes(input_shapes)
     _pin_shapes(model, pinned, path)
     # dangling inputs and cycles first: our message names the node, the checker's does not
@@ -260,4 +264,5 @@ def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
     name = g.name or Path(path).stem
     return ModelView(path=path, sha256=hashlib.sha256(raw).hexdigest(), name=name, nodes=kept,
                      consts=consts, shapes=shapes, dtypes=dtypes, inputs=inputs,
-                     outputs=outputs, opset=opset)
+                     outputs=outputs, opset=opset,
+                     overridable=model_spec.overridable_initializers(model))
