@@ -167,6 +167,15 @@ class NodeChecker:
         self.opset = view.opset.get("", 17)
         self.producer = {o: n for n in view.nodes for o in n.output if o}
         self.node: onnx.NodeProto | None = None
+        # DequantizeLinear nodes that make a Conv/Gemm bias -> that Conv/Gemm: checked as
+        # a bias before they are checked as a DequantizeLinear
+        self.bias_of: dict[int, onnx.NodeProto] = {}
+        for n in view.nodes:
+            if n.domain in DEFAULT_DOMAINS and n.op_type in ("Conv", "Gemm") \
+                    and len(n.input) > 2 and n.input[2]:
+                p = self.producer.get(n.input[2])
+                if p is not None and p.op_type == "DequantizeLinear":
+                    self.bias_of[id(p)] = n
 
     def error(self, reason: str) -> TinygenError:
         n = self.node
@@ -175,6 +184,9 @@ class NodeChecker:
                             op=n.op_type if n is not None else "")
 
     def check(self, node: onnx.NodeProto) -> None:
+        if id(node) in self.bias_of:
+            self.node = self.bias_of[id(node)]
+            self._qdq_bias(self.node)
         self.node = node
         if node.op_type in ("QuantizeLinear", "DequantizeLinear") and any(
                 a.name == "block_size" and onnx.helper.get_attribute_value(a)
@@ -257,29 +269,32 @@ class NodeChecker:
     def _operand(self, node, operand: Operand, rule: OpRule) -> None:
         data = node.output[0] if operand.data is None else self._input(node, operand.data)
         scale_name, zp_name = self._input(node, operand.scale), self._input(node, operand.zp)
+        if operand.data is not None:  # T, T1, T2 of the data: int8 or uint8 [onnx], [ort]
+            dt = self._data_type(data)
+            dq = node.op_type == "DequantizeLinear"
+            if dt is not None and dt not in EIGHT_BIT and not (dq and dt == np.int32):
+                need = "int8, uint8 or int32" if dq else "int8 or uint8"
+                raise self.error(f"{operand.role} '{data}' has type {dt.name}; {need} required")
         scale = None
         if operand.scale is not None:
             if not scale_name:
                 raise self.error(f"the {operand.role} scale is missing")
             scale = self._const(scale_name, "scale")
             self._scale_type(node, scale_name, scale, operand.scale)
-            self._length(node, scale_name, "scale", scale, operand, data)
         zp = None
         if zp_name:
             zp = self._const(zp_name, "zero point")
             self._zero_point_type(node, zp_name, zp, data, operand)
-            self._length(node, zp_name, "zero point", zp, operand, data)
             # QuantizeLinear / DequantizeLinear: "Shape must match y_scale" [onnx]
             if operand.channels == "axis" and scale is not None and zp.size != scale.size:
-                raise self.error(f"zero point '{zp_name}' has {zp.size} values, scale "
-                                 f"'{scale_name}' {scale.size}; the spec requires the same "
-                                 "shape")
-        if operand.data is not None:  # T1/T2 of the data: int8 or uint8 [onnx], [ort]
-            dt = self._data_type(data)
-            if dt is not None and dt not in EIGHT_BIT and not (
-                    node.op_type == "DequantizeLinear" and dt == np.int32):
-                raise self.error(f"{operand.role} '{data}' has type {dt.name}; int8 or uint8 "
-                                 "required")
+                kind = "is per-tensor" if scale.size == 1 else f"has {scale.size} values"
+                raise self.error(f"zero point '{zp_name}' has length {zp.size}; expected "
+                                 f"{scale.size} (its scale '{scale_name}' {kind}: the spec "
+                                 "requires the same shape)")
+        if scale is not None:
+            self._length(node, scale_name, "scale", scale, operand, data)
+        if zp is not None:
+            self._length(node, zp_name, "zero point", zp, operand, data)
 
     def _scale_type(self, node, name: str, scale: np.ndarray, index: int) -> None:
         if scale.dtype == np.float32:
@@ -287,12 +302,12 @@ class NodeChecker:
         if scale.dtype == np.float16 and self._schema_allows(node, index, "tensor(float16)") \
                 and node.op_type not in ("QuantizeLinear", "DequantizeLinear"):
             return  # QLinearMatMul-21's TS [onnx]; float16 -> float32 is exact
-        note = ""
+        why = "float32 or float16 where the op's opset allows float16"
         if scale.dtype == np.float16 and node.op_type in ("QuantizeLinear",
                                                          "DequantizeLinear"):
-            note = " (a float16 scale means float16 activations around it)"
+            why = "a float16 scale here means float16 activations, which are not compiled"
         raise self.error(f"scale '{name}' has type {scale.dtype.name}; float32 required "
-                         f"(float32 or float16 where the op's opset allows float16){note}")
+                         f"({why})")
 
     def _schema_allows(self, node, index: int, type_str: str) -> bool:
         domain = "" if node.domain in DEFAULT_DOMAINS else node.domain
@@ -382,8 +397,9 @@ class NodeChecker:
         x = prod.input[0]
         dt = self._data_type(x)
         if dt is not None and dt != np.int32:
-            raise self.error(f"bias '{name}' is DequantizeLinear of '{x}' of type {dt.name}; "
-                             "int32 required")
+            raise self.error(f"bias '{x}' (DequantizeLinear '{prod.name or name}') has type "
+                             f"{dt.name}; {node.op_type} needs an int32 bias (DequantizeLinear "
+                             "of int32 at scale x_scale * w_scale, zero point 0)")
 
     def _int32_dequantize(self, node) -> None:
         """"In the case of dequantizing int32, there's no zero point (zero point is supposed
