@@ -56,6 +56,27 @@ def contrib_model(version: int = 1, parts=None) -> onnx.ModelProto:
     return m
 
 
+def qgemm_parts():
+    """The QOperator chain with com.microsoft QGemm (int32 bias C) in place of the MatMul."""
+    nodes, inits, ins, outs = qop_parts()
+    rng = np.random.default_rng(8)
+    inits = inits + [_init("c_bias", rng.integers(-400, 400, 5).astype(np.int32))]
+    gemm = helper.make_node("QGemm", ["f", "s_c", "z_c", "m", "s_m", "z_m", "c_bias", "s_y",
+                                      "z_y"], ["yq"], name="qgemm", domain="com.microsoft")
+    return replace_node((nodes, inits, ins, outs), "qmatmul", gemm)
+
+
+def conv_integer_parts():
+    """uint8 x -> ConvInteger (per-channel weight zero points) -> int32 y."""
+    rng = np.random.default_rng(9)
+    inits = [_init("w", rng.integers(-60, 60, (3, 2, 3, 3)).astype(np.int8)),
+             _init("z_x", np.uint8(120)), _init("z_w", np.array([1, -2, 0], np.int8))]
+    nodes = [helper.make_node("ConvInteger", ["x", "w", "z_x", "z_w"], ["y"], name="cint")]
+    x = helper.make_tensor_value_info("x", TensorProto.UINT8, [1, 2, 6, 6])
+    y = helper.make_tensor_value_info("y", TensorProto.INT32, [1, 3, 4, 4])
+    return nodes, inits, [x], [y]
+
+
 def with_opset(parts, opset: int) -> onnx.ModelProto:
     return build(*parts, opset=opset)
 
@@ -111,6 +132,8 @@ def valid_models() -> dict[str, onnx.ModelProto]:
         "qdq_ir3_initializers_listed": _inputs_listing_initializers(
             {i.name for i in inits}, 3),
         "qop_per_column_2d_scale": _per_column_2d_scale(),
+        "contrib_qgemm": contrib_model(parts=qgemm_parts()),
+        "conv_integer": build(*conv_integer_parts()),
     }
 
 
@@ -304,6 +327,20 @@ def cases() -> list[Case]:
              "'s_a' has length 2; expected 1", node="qadd", op="QLinearAdd"),
         Case("contrib_zero_point_int16", save(_contrib("z_a", np.int16(110))),
              "'z_a' has type int16", node="qadd", op="QLinearAdd"),
+        # QGemm's C: "Its type is int32_t and must be quantized with zero_point = 0" [ort]
+        Case("contrib_qgemm_bias_int64", save(contrib_model(parts=replace_init(
+            qgemm_parts(), "c_bias", np.array([2**31, 1, 2, 3, 4], np.int64)))),
+            "'c_bias' has type int64; QGemm requires int32", node="qgemm", op="QGemm"),
+        Case("contrib_qgemm_bias_float", save(contrib_model(parts=replace_init(
+            qgemm_parts(), "c_bias", _f32([0.5, 1, 2, 3, 4])))),
+            "'c_bias' has type float32", node="qgemm", op="QGemm"),
+        # ConvInteger's w_zero_point: a scalar or one per output channel [onnx ConvInteger-10]
+        Case("conv_integer_zero_point_wrong_length", save_parts(replace_init(
+            conv_integer_parts(), "z_w", np.zeros(2, np.int8))),
+            "'z_w' has length 2; expected 3", node="cint", op="ConvInteger"),
+        Case("conv_integer_input_zero_point_per_axis", save_parts(replace_init(
+            conv_integer_parts(), "z_x", np.full(2, 120, np.uint8))),
+            "'z_x' has length 2; expected 1", node="cint", op="ConvInteger"),
         # -- the graph's declarations
         Case("no_outputs", save(_no_outputs()), "no outputs"),
         Case("no_inputs", save(_no_inputs()), "no inputs"),

@@ -121,8 +121,8 @@ def test_equivalent_form_emits_the_same_c(valid_paths, name):
     assert _tree(valid_paths[name]) == _tree(valid_paths["qdq"])
 
 
-@pytest.mark.parametrize("name", ["contrib_qlinearadd", "qop_per_column_2d_scale",
-                                  "qdq_default_zero_point"])
+@pytest.mark.parametrize("name", ["contrib_qlinearadd", "contrib_qgemm", "conv_integer",
+                                  "qop_per_column_2d_scale", "qdq_default_zero_point"])
 def test_valid_form_is_bit_exact(valid_paths, name):
     r = forked("check", str(valid_paths[name]), "--samples", "3", "--json")
     assert r.returncode == 0, r.stderr

@@ -20,6 +20,8 @@ def to_int8_domain(data: np.ndarray | None, zero_point: np.ndarray, src_dtype) -
     if np.dtype(src_dtype) == np.uint8:
         zp = zp - 128
         if data is not None:
+            if np.asarray(data).dtype != np.uint8:  # callers pass data of src_dtype
+                raise ValueError(f"uint8 data expected, not {np.asarray(data).dtype}")
             data = (np.asarray(data, dtype=np.int16) - 128).astype(np.int8)
     elif data is not None:
         if np.asarray(data).dtype != np.int8:  # callers pass data of src_dtype (const_int8)
