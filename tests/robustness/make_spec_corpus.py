@@ -133,6 +133,8 @@ def valid_models() -> dict[str, onnx.ModelProto]:
             {i.name for i in inits}, 3),
         "qop_per_column_2d_scale": _per_column_2d_scale(),
         "contrib_qgemm": contrib_model(parts=qgemm_parts()),
+        # a symbolic output dimension promises nothing about its size
+        "output_symbolic_dim": _output_dims(["n", 3]),
         "conv_integer": build(*conv_integer_parts()),
     }
 
@@ -347,6 +349,10 @@ def cases() -> list[Case]:
         Case("output_negative_dim", save(_output_dims([1, -3])),
              "'y' declares dimension -3 at axis 1"),
         Case("output_zero_dim", save(_output_dims([0, 3])), "'y' declares dimension 0"),
+        Case("output_shape_differs", save(_output_dims([1, 4])),
+             "'y' is declared with shape [1, 4]; the graph computes [1, 3]"),
+        Case("output_rank_differs", save(_output_dims([1, 3, 1])),
+             "'y' is declared with shape [1, 3, 1]; the graph computes [1, 3]"),
         Case("input_negative_dim", save(_input_dims([1, -2, 6, 6])), "dimension -2 at axis 1"),
         Case("input_string_dim", save(_input_dims([1, 2, "height", 6])),
              "symbolic dimension 'height'"),

@@ -220,6 +220,7 @@ class Lowering:
                 raise fail(f"graph output '{name}' is not computed from quantized tensors")
             if t.is_const:
                 raise fail(f"graph output '{name}' is a constant")
+            spec.check_output_shape(name, v.declared_outputs.get(name), t.shape, v.path)
             src = "int32" if t.dtype == "int32" else (t.quant.src_dtype if t.quant else "int8")
             if onnx_dt is None:
                 onnx_dt = src

@@ -42,6 +42,8 @@ class ModelView:
     opset: dict[str, int] = field(default_factory=dict)
     # initializers a caller may replace at run time (also graph inputs): never constants
     overridable: set[str] = field(default_factory=set)
+    # graph outputs' shapes as the file declares them (None: a symbolic dimension)
+    declared_outputs: dict[str, tuple] = field(default_factory=dict)
 
     def attr(self, node: onnx.NodeProto, name: str, default=None):
         for a in node.attribute:
@@ -265,4 +267,5 @@ def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
     return ModelView(path=path, sha256=hashlib.sha256(raw).hexdigest(), name=name, nodes=kept,
                      consts=consts, shapes=shapes, dtypes=dtypes, inputs=inputs,
                      outputs=outputs, opset=opset,
-                     overridable=model_spec.overridable_initializers(model))
+                     overridable=model_spec.overridable_initializers(model),
+                     declared_outputs=model_spec.declared_output_shapes(model))

@@ -145,6 +145,31 @@ def check_graph(model: onnx.ModelProto, path: str) -> None:
                                    file=path)
 
 
+def declared_output_shapes(model: onnx.ModelProto) -> dict[str, tuple[int | None, ...]]:
+    """Each graph output's declared shape (None for a symbolic or unknown dimension);
+    outputs that declare no shape are left out."""
+    out = {}
+    for o in model.graph.output:
+        tt = o.type.tensor_type
+        if tt.HasField("shape"):
+            out[o.name] = tuple(int(d.dim_value) if d.HasField("dim_value") else None
+                                for d in tt.shape.dim)
+    return out
+
+
+def check_output_shape(name: str, declared: tuple[int | None, ...] | None,
+                       computed: tuple[int, ...], path: str) -> None:
+    """A declared output shape is a promise to the caller (the buffer it passes): the graph
+    must compute exactly that shape, dimension by dimension where a size is given."""
+    if declared is None:
+        return
+    if len(declared) != len(computed) or any(d is not None and d != c
+                                             for d, c in zip(declared, computed, strict=False)):
+        shown = [d if d is not None else "?" for d in declared]
+        raise TinygenError(f"graph output '{name}' is declared with shape {shown}; the graph "
+                           f"computes {list(computed)}", file=path)
+
+
 def overridable_initializers(model: onnx.ModelProto) -> set[str]:
     """Initializers that are also graph inputs: from IR version 4 on, a caller may feed a
     value for them at run time, the initializer being only a default [onnx IR.md, "Graphs":
