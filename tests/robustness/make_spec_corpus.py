@@ -205,6 +205,28 @@ def _reshape_shape_overridable() -> onnx.ModelProto:
     return build(nodes, inits + [_init("shape", shape)], ins + [vi], outs)
 
 
+def _int32_into_add() -> onnx.ModelProto:
+    """DequantizeLinear of an int32 constant (allowed by the spec) added to an activation:
+    the kernels take int32 only as a bias."""
+    nodes, inits, ins, outs = qdq_parts()
+    inits = inits + [_init("k", np.full((1, 4, 1, 1), 300, np.int32)), _init("k_s",
+                                                                          _f32(0.01))]
+    out = []
+    for n in nodes:
+        if n.name == "pool1":
+            out += [helper.make_node("DequantizeLinear", ["k", "k_s"], ["kd"], name="dq_k"),
+                    helper.make_node("Add", ["rd", "kd"], ["a"], name="add_k"),
+                    helper.make_node("QuantizeLinear", ["a", "s_c", "z_c"], ["aq"],
+                                     name="quant_a"),
+                    helper.make_node("DequantizeLinear", ["aq", "s_c", "z_c"], ["ad"],
+                                     name="dequant_a"),
+                    helper.make_node("MaxPool", ["ad"], ["p"], name="pool1",
+                                     kernel_shape=[2, 2], strides=[2, 2])]
+        else:
+            out.append(n)
+    return build(out, inits, ins, outs)
+
+
 def _contrib(name: str, arr) -> onnx.ModelProto:
     return contrib_model(parts=replace_init(contrib_parts(), name, arr))
 
@@ -363,6 +385,8 @@ def cases() -> list[Case]:
         Case("quantize_int32_constant", save(_quantized_constant(
             np.ones((4, 2, 3, 3), np.int32))), "'wf' quantized here has type int32",
             node="quant_w", op="QuantizeLinear"),
+        Case("dequantized_int32_into_add", save(_int32_into_add()),
+             "'kd' is DequantizeLinear of int32", node="add_k", op="Add"),
         Case("dequantize_int16_weights", save_parts(replace_init(replace_init(
             qdq(), "w", np.ones((4, 2, 3, 3), np.int16)), "w_zp", np.zeros(4, np.int16))),
             "'w' has type int16; int8, uint8 or int32 required", node="dq_w",

@@ -108,6 +108,10 @@ class Lowering:
         v = self.value(name)
         if isinstance(v, Pending):
             v = self.settle(name, v)
+        if isinstance(v, Deq) and v.t.dtype == "int32":
+            # DequantizeLinear allows int32 [onnx]; the kernels take it only as a bias
+            raise self.error(f"{what} '{name}' is DequantizeLinear of int32: int32 tensors are "
+                             "taken only as the bias of Conv, Gemm, or MatMul followed by Add")
         if isinstance(v, Deq):
             return v.t
         if isinstance(v, FloatIn):

@@ -56,7 +56,6 @@ class OpRule:
     operands: tuple[Operand, ...]
     bias: int | None = None          # index of the int32 bias input
     weight: int | None = None        # index of a weight input that must be constant
-    source: str = "[onnx]"
 
 
 _IN, _OUT = "input", "output"
@@ -89,16 +88,15 @@ RULES: dict[tuple[str, str], OpRule] = {
     # QLinearConcat); QGemm's b_scale/b_zero_point "a scalar or a 1-D tensor ... per-column"
     # and C "Its type is int32_t and must be quantized with zero_point = 0".
     (CONTRIB, "QLinearAdd"): OpRule((Operand(_IN, 0, 1, 2), Operand(_IN, 3, 4, 5),
-                                     Operand(_OUT, None, 6, 7)), source="[ort]"),
+                                     Operand(_OUT, None, 6, 7))),
     (CONTRIB, "QLinearMul"): OpRule((Operand(_IN, 0, 1, 2), Operand(_IN, 3, 4, 5),
-                                     Operand(_OUT, None, 6, 7)), source="[ort]"),
+                                     Operand(_OUT, None, 6, 7))),
     (CONTRIB, "QGemm"): OpRule((Operand(_IN, 0, 1, 2), Operand("weight", 3, 4, 5, "columns"),
-                                Operand(_OUT, None, 7, 8)), bias=6, source="[ort]"),
+                                Operand(_OUT, None, 7, 8)), bias=6),
 }
 for _op in ("QLinearSigmoid", "QLinearLeakyRelu", "QLinearSoftmax", "QLinearAveragePool",
             "QLinearGlobalAveragePool"):
-    RULES[(CONTRIB, _op)] = OpRule((Operand(_IN, 0, 1, 2), Operand(_OUT, None, 3, 4)),
-                                   source="[ort]")
+    RULES[(CONTRIB, _op)] = OpRule((Operand(_IN, 0, 1, 2), Operand(_OUT, None, 3, 4)))
 
 
 def _rule(node: onnx.NodeProto) -> OpRule | None:
@@ -106,14 +104,14 @@ def _rule(node: onnx.NodeProto) -> OpRule | None:
     if (domain, node.op_type) == (CONTRIB, "QLinearConcat"):  # Y_scale, Y_zp, then triples
         ops = [Operand(_OUT, None, 0, 1)]
         ops += [Operand(_IN, i, i + 1, i + 2) for i in range(2, len(node.input) - 2, 3)]
-        return OpRule(tuple(ops), source="[ort]")
+        return OpRule(tuple(ops))
     rule = RULES.get((domain, node.op_type))
     if rule is not None and (domain, node.op_type) == (CONTRIB, "QGemm"):
         attrs = {a.name: onnx.helper.get_attribute_value(a) for a in node.attribute}
         if attrs.get("transB", 0):  # b is [N, K]: one value per row
             ops = list(rule.operands)
             ops[1] = Operand("weight", 3, 4, 5, "rows")
-            rule = OpRule(tuple(ops), rule.bias, rule.weight, rule.source)
+            rule = OpRule(tuple(ops), rule.bias, rule.weight)
     return rule
 
 
@@ -220,7 +218,7 @@ class NodeChecker:
         rule = _rule(node)
         if rule is not None:
             for operand in rule.operands:
-                self._operand(node, operand, rule)
+                self._operand(node, operand)
             if rule.weight is not None:
                 self._constant(node, rule.weight, "weight")
             if rule.bias is not None:
@@ -291,7 +289,7 @@ class NodeChecker:
             return shape[0], f"one per output channel of '{data}' (dim 0), or 1"
         return shape[-1], f"one per column of '{data}' (last dim), or 1"
 
-    def _operand(self, node, operand: Operand, rule: OpRule) -> None:
+    def _operand(self, node, operand: Operand) -> None:
         data = node.output[0] if operand.data is None else self._input(node, operand.data)
         scale_name, zp_name = self._input(node, operand.scale), self._input(node, operand.zp)
         if operand.data is not None:  # T, T1, T2 of the data: int8 or uint8 [onnx], [ort]
