@@ -106,6 +106,22 @@ def _per_column_2d_scale() -> onnx.ModelProto:
     return build(*replace_init(parts, "z_m", np.full((1, 5), 128, np.uint8)))
 
 
+def _matmul_scales_of(dtype):
+    """QLinearMatMul with its three scales of `dtype` (values exact in float16)."""
+    # s_c (QLinearConv's y_scale, tensor(float) only) at a value float16 holds exactly
+    nodes, inits, ins, outs = replace_init(qop_parts(), "s_c", _f32(0.078125))
+    inits = inits + [_init("h_c", dtype(0.078125)), _init("h_m", dtype(0.00390625)),
+                     _init("h_y", dtype(0.1875))]
+    mm = helper.make_node("QLinearMatMul", ["f", "h_c", "z_c", "m", "h_m", "z_m", "h_y", "z_y"],
+                          ["yq"], name="qmatmul")
+    nodes = [mm if n.name == "qmatmul" else n for n in nodes]
+    # the output is dequantized at h_y's value
+    nodes = [helper.make_node("DequantizeLinear", ["yq", "s_y16", "z_y"], ["y"],
+                              name="dequant_y") if n.name == "dequant_y" else n for n in nodes]
+    inits = inits + [_init("s_y16", _f32(0.1875))]
+    return nodes, inits, ins, outs
+
+
 def valid_models() -> dict[str, onnx.ModelProto]:
     """Models every rule must accept: the corpus bases and forms the spec allows."""
     nodes, inits, ins, outs = qdq_parts()
@@ -132,6 +148,9 @@ def valid_models() -> dict[str, onnx.ModelProto]:
         "qdq_ir3_initializers_listed": _inputs_listing_initializers(
             {i.name for i in inits}, 3),
         "qop_per_column_2d_scale": _per_column_2d_scale(),
+        # float16 scales where the opset's schema allows them [onnx QLinearMatMul-21]
+        "qop_opset21_float16_scales": with_opset(_matmul_scales_of(np.float16), 21),
+        "qop_opset21_float32_scales": with_opset(_matmul_scales_of(np.float32), 21),
         "contrib_qgemm": contrib_model(parts=qgemm_parts()),
         # a symbolic output dimension promises nothing about its size
         "output_symbolic_dim": _output_dims(["n", 3]),
@@ -276,6 +295,11 @@ def cases() -> list[Case]:
             op="QuantizeLinear"),
         Case("qop_scale_float16", save_parts(replace_init(
             qop(), "s_m", np.float16(0.004))), "'s_m' has type float16", node="qmatmul",
+            op="QLinearMatMul"),
+        # QLinearMatMul-21: a_scale, b_scale and y_scale are all of type TS [onnx]
+        Case("qop_opset21_scales_of_two_types", save(with_opset(replace_init(
+            qop(), "s_m", np.float16(0.004)), 21)),
+            "scales 's_c' (float32) and 's_m' (float16) must have one type", node="qmatmul",
             op="QLinearMatMul"),
         Case("qdq_scale_2d", save_parts(replace_init(
             qdq(), "s_c", _f32([[0.04]]))), "'s_c' has shape [1, 1]", node="quant_c",

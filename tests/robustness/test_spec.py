@@ -19,7 +19,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import make_spec_corpus  # noqa: E402
-from test_bad_inputs import LINE, forked  # noqa: E402
+from test_bad_inputs import LINE, forked, tinygen  # noqa: E402
 
 from tinygen.compiler import BuildOptions, compile_model  # noqa: E402
 from tinygen.errors import TinygenError  # noqa: E402
@@ -74,6 +74,20 @@ def test_spec_violation_leaves_no_output(results, name):
     assert list(out.parent.iterdir()) == []
 
 
+@pytest.mark.parametrize("name", ["qop_bias_int64_past_int32", "qop_zero_point_128_128",
+                                  "opset_99"])
+def test_real_subprocess_and_other_verbs_say_the_same(results, name, tmp_path):
+    case, path, _, r = results[name]
+    real = tinygen("emit", str(path), "-o", str(tmp_path / "tree"))
+    assert (real.returncode, real.stdout, real.stderr) == (r.returncode, r.stdout, r.stderr)
+    for verb in (["check", str(path), "--samples", "1"], ["plan", str(path)]):
+        other = forked(*verb)
+        assert (other.returncode, other.stderr) == (2, r.stderr), (verb, other.stderr)
+    j = forked("plan", str(path), "--json")
+    assert json.loads(j.stdout)["error"] == r.stderr.strip()[len("tinygen: error: "):]
+    assert not (tmp_path / "tree").exists()
+
+
 def test_bias_past_int32_is_refused_not_wrapped(results):
     # 2^32 + 5 would wrap to 5 in int32: the line must say int64, and name the int32 rule
     # (QLinearConv's B is tensor(int32) [onnx QLinearConv-10])
@@ -121,8 +135,15 @@ def test_equivalent_form_emits_the_same_c(valid_paths, name):
     assert _tree(valid_paths[name]) == _tree(valid_paths["qdq"])
 
 
+def test_float16_scales_where_allowed_emit_what_float32_scales_do(valid_paths):
+    # float16 -> float32 is exact: the same values in either type are the same model
+    assert _tree(valid_paths["qop_opset21_float16_scales"]) == _tree(
+        valid_paths["qop_opset21_float32_scales"])
+
+
 @pytest.mark.parametrize("name", ["contrib_qlinearadd", "contrib_qgemm", "conv_integer",
-                                  "qop_per_column_2d_scale", "qdq_default_zero_point"])
+                                  "qop_per_column_2d_scale", "qdq_default_zero_point",
+                                  "qop_opset21_float16_scales"])
 def test_valid_form_is_bit_exact(valid_paths, name):
     r = forked("check", str(valid_paths[name]), "--samples", "3", "--json")
     assert r.returncode == 0, r.stderr

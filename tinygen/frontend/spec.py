@@ -219,6 +219,7 @@ class NodeChecker:
         if rule is not None:
             for operand in rule.operands:
                 self._operand(node, operand)
+            self._one_scale_type(node, rule)
             if rule.weight is not None:
                 self._constant(node, rule.weight, "weight")
             if rule.bias is not None:
@@ -332,15 +333,37 @@ class NodeChecker:
         raise self.error(f"scale '{name}' has type {scale.dtype.name}; float32 required "
                          f"({why})")
 
-    def _schema_allows(self, node, index: int, type_str: str) -> bool:
-        domain = "" if node.domain in DEFAULT_DOMAINS else node.domain
-        if domain:
-            return False
+    def _one_scale_type(self, node, rule: OpRule) -> None:
+        """Scales that share one type variable (QLinearMatMul-21's TS for a_scale, b_scale
+        and y_scale [onnx]) must have one type."""
+        schema = self._schema(node)
+        if schema is None:
+            return
+        seen: dict[str, tuple[str, np.dtype]] = {}
+        for operand in rule.operands:
+            i = operand.scale
+            if i is None or i >= len(schema.inputs) or i >= len(node.input):
+                continue
+            var = schema.inputs[i].type_str
+            dt = np.asarray(self.view.consts[node.input[i]]).dtype
+            if var.startswith("tensor("):
+                continue
+            first = seen.setdefault(var, (node.input[i], dt))
+            if first[1] != dt:
+                raise self.error(f"scales '{first[0]}' ({first[1].name}) and '{node.input[i]}' "
+                                 f"({dt.name}) must have one type (the spec's {var})")
+
+    def _schema(self, node):
+        if node.domain not in DEFAULT_DOMAINS:
+            return None
         try:
-            schema = defs.get_schema(node.op_type, self.opset, domain)
+            return defs.get_schema(node.op_type, self.opset, "")
         except Exception:  # not a schema of this opset: the checker already spoke
-            return False
-        if index >= len(schema.inputs):
+            return None
+
+    def _schema_allows(self, node, index: int, type_str: str) -> bool:
+        schema = self._schema(node)
+        if schema is None or index >= len(schema.inputs):
             return False
         t = schema.inputs[index].type_str
         if t.startswith("tensor("):
