@@ -159,15 +159,14 @@ def test_existing_outdir_is_untouched_without_force(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["bad.onnx", "good.onnx", "out"]
 
 
-def test_force_replaces_outdir_whole(tmp_path):
+def test_force_replaces_a_tree_tinygen_wrote_whole(tmp_path):
     good = _good_model(tmp_path)
     out = tmp_path / "out"
-    out.mkdir()
-    (out / "keep.txt").write_text("mine")
+    assert forked("emit", str(good), "-o", str(out), "--prefix", "first").returncode == 0
     r = forked("emit", str(good), "-o", str(out), "--force")
     assert r.returncode == 0, r.stderr
     names = sorted(p.name for p in out.iterdir())
-    assert "keep.txt" not in names and "model.c" in names
+    assert "first.c" not in names and "model.c" in names and "tinygen-tree.txt" in names
     assert sorted(p.name for p in tmp_path.iterdir()) == ["good.onnx", "out"]  # no temp left
 
 
