@@ -270,9 +270,12 @@ def cmd_check(args) -> int:
 def cmd_plan(args) -> int:
     from tinygen.compiler import compile_model, summary
     from tinygen.report.plan_view import plan_svg, plan_table
+    if args.svg is not None:
+        from tinygen.codegen.output import file_target
+        file_target(args.svg, _inputs_of(args), "--svg")  # refuse before the work
     c = compile_model(args.model, build_options(args))
     info = dict(summary(c), const_bytes=c.const_bytes)
-    if args.svg:
+    if args.svg is not None:
         from tinygen.codegen.output import write_file
         write_file(args.svg, plan_svg(c), protect=_inputs_of(args), what="--svg")
     if args.json:
@@ -311,8 +314,10 @@ def cmd_emulate(args) -> int:
 
 
 def cmd_report(args) -> int:
+    from tinygen.codegen.output import file_target
     from tinygen.compiler import compile_model, summary
     from tinygen.report.html import measure_layers, write_report
+    file_target(args.output, _inputs_of(args), "report")  # refuse before the work
     c = compile_model(args.model, build_options(args))
     samples = _samples(args, c)
     progress = for_cli(args, "report").phase("measuring (emulation, SQNR, accuracy)")

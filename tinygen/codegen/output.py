@@ -364,14 +364,25 @@ def write_file(path: str, text: str, *, protect: Iterable[str] = (), what: str =
         raise _os_error(f"cannot write {what} '{path}'", exc) from None
 
 
-def _write_file(path: str, text: str, protect: Iterable[str], what: str) -> None:
-    real = os.path.realpath(path)
-    if os.path.isdir(real):
-        raise TinygenError(f"{what} '{path}' is a folder; name a file")
+def file_target(path: str, protect: Iterable[str] = (), what: str = "output") -> Path:
+    """Where `write_file` would write `path`, refusing what it would refuse (callers check
+    before a long computation, not after)."""
+    if not path.strip():
+        raise TinygenError(f"{what} '': give the file a name")
+    try:
+        real = os.path.realpath(path)
+        if os.path.isdir(real):
+            raise TinygenError(f"{what} '{path}' is a folder; name a file")
+    except OSError as exc:
+        raise _os_error(f"cannot write {what} '{path}'", exc) from None
     for p in protect:
         if p and real in _locations(p):
             raise TinygenError(f"{what} '{path}' is the input '{p}'; name another file")
-    target = Path(real)
+    return Path(real)
+
+
+def _write_file(path: str, text: str, protect: Iterable[str], what: str) -> None:
+    target = file_target(path, protect, what)
     umask = _umask()
     debris: list[Path] = []
     with interrupts_deferred():
