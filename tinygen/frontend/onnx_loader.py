@@ -17,6 +17,7 @@ from onnx import helper, numpy_helper, shape_inference
 
 from tinygen.errors import TinygenError
 from tinygen.frontend import spec as model_spec
+from tinygen.user_input import parse_input_shapes, read_user_file
 
 # Ops whose output is folded when every input is a constant: shape arithmetic that
 # exporters leave in graphs (Shape -> Gather -> Concat -> Reshape) and plain constants.
@@ -52,26 +53,8 @@ class ModelView:
         return default
 
 
-def parse_input_shapes(specs: list[str] | None) -> dict[str, tuple[int, ...]]:
-    """Parse --input-shape NAME=1x3x96x96 flags."""
-    out: dict[str, tuple[int, ...]] = {}
-    for spec in specs or []:
-        name, sep, dims = spec.rpartition("=")
-        try:
-            shape = tuple(int(d) for d in dims.lower().split("x"))
-        except ValueError:
-            shape = ()
-        if not sep or not name or not shape or min(shape) <= 0:
-            raise TinygenError(f"--input-shape '{spec}' is not NAME=D1xD2x... with positive dims")
-        out[name] = shape
-    return out
-
-
 def _read_model(path: str) -> tuple[onnx.ModelProto, bytes]:
-    try:
-        raw = Path(path).read_bytes()
-    except OSError as exc:
-        raise TinygenError(f"cannot read the model: {exc.strerror or exc}", file=path) from None
+    raw = read_user_file(path, "the model")
     try:
         model = onnx.load_from_string(raw)
     except Exception:  # protobuf raises several types for truncated or foreign bytes
@@ -106,6 +89,10 @@ def _pin_shapes(model: onnx.ModelProto, pinned: dict[str, tuple[int, ...]], path
             if len(dims) and len(dims) != len(shape):
                 raise TinygenError(f"--input-shape for '{inp.name}' has rank {len(shape)}, "
                                    f"the model says rank {len(dims)}", file=path)
+            for i, (d, want) in enumerate(zip(dims, shape, strict=False)):
+                if d.HasField("dim_value") and d.dim_value != want:
+                    raise TinygenError(f"--input-shape for '{inp.name}' says {want} at axis "
+                                       f"{i}, where the model fixes {d.dim_value}", file=path)
             del dims[:]
             for d in shape:
                 dims.add().dim_value = d
