@@ -256,6 +256,8 @@ def cmd_check(args) -> int:
             o = res.onnxruntime
             _show(f"vs onnxruntime: max |diff| {o['max_abs_diff']} LSB, "
                   f"{100 * o['equal_fraction']:.2f}% of elements equal")
+            if o.get("note"):
+                _show(f"  note: {o['note']}")
         for t in traces:
             _show("\n".join(t.lines()))
         if qerr is not None:
