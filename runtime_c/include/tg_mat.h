@@ -76,18 +76,44 @@ static void tg_mat_widen_pair(const int8_t *p0, const int8_t *p1, int32_t k_len,
                              int16_t *xw)
 {
     const uint32_t off = (uint32_t)(uint16_t)(-in_zp) * 0x00010001u;
-    int32_t k = 0;
+    int32_t k = k_len & ~3;
     uint32_t v0, v1;
-    for (; k + 4 <= k_len; k += 4, xw += 8) {
+#if TG_MAT_ASM
+    if (k != 0) {  /* whole groups: gcc -Os would spill the eight words of a group */
+        int32_t n = k >> 2;
+        uint32_t e0, e1;
+        const int8_t *s0 = p0, *s1 = p1;
+        __asm__ volatile(
+            "1:\n\t"
+            "ldr     %[v0], [%[s0]], #4\n\t"
+            "ldr     %[v1], [%[s1]], #4\n\t"
+            "sxtab16 %[e0], %[off], %[v0]\n\t"
+            "sxtab16 %[v0], %[off], %[v0], ror #8\n\t"
+            "sxtab16 %[e1], %[off], %[v1]\n\t"
+            "sxtab16 %[v1], %[off], %[v1], ror #8\n\t"
+            "strd    %[e1], %[v1], [%[xw], #8]\n\t"
+            "strd    %[e0], %[v0], [%[xw]], #16\n\t"
+            "subs    %[n], %[n], #1\n\t"
+            "bne     1b"
+            : [s0] "+r"(s0), [s1] "+r"(s1), [xw] "+r"(xw), [n] "+r"(n), [v0] "=&r"(v0),
+              [v1] "=&r"(v1), [e0] "=&r"(e0), [e1] "=&r"(e1)
+            : [off] "r"(off)
+            : "cc", "memory");
+    }
+#else
+    for (k = 0; k + 4 <= k_len; k += 4, xw += 8) {
         memcpy(&v0, p0 + k, sizeof v0);
         memcpy(&v1, p1 + k, sizeof v1);
         tg_mat_put4(xw, v0, v1, off);
     }
+#endif
     if (k < k_len) {  /* the last partial group: in_zp past k_len widens to 0 */
         int8_t last[8];
-        memset(last, (int8_t)in_zp, sizeof last);
-        memcpy(last, p0 + k, (size_t)(k_len - k));
-        memcpy(last + 4, p1 + k, (size_t)(k_len - k));
+        int32_t i;
+        for (i = 0; i < 4; ++i) {  /* byte by byte: library calls would cost more */
+            last[i] = k + i < k_len ? p0[k + i] : (int8_t)in_zp;
+            last[4 + i] = k + i < k_len ? p1[k + i] : (int8_t)in_zp;
+        }
         memcpy(&v0, last, sizeof v0);
         memcpy(&v1, last + 4, sizeof v1);
         tg_mat_put4(xw, v0, v1, off);
