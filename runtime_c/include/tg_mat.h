@@ -236,25 +236,33 @@ static int tg_mat_fast(const tg_requant_t *rq)
 }
 
 #if TG_MAT_ASM
-/* What the assembly routines read (offsets 0..20 on 32-bit Arm). */
+/* What the assembly routines read (offsets 0..40 on 32-bit Arm). */
 typedef struct {
     const int16_t *xw;     /* the pair buffer */
     const int32_t *pack;   /* first record */
-    int8_t *y0, *y1;       /* channel 0 of pixels 0 and 1 */
+    int8_t *y0, *y1;       /* channel 0 of pixels 0 and 1 (of the first pixel pair) */
     int32_t pairs;         /* whole channel pairs, >= 1 */
     int32_t groups;        /* groups of four; the short routine takes <= TG_MAT_CHUNK */
+    const int8_t *x;       /* NULL: xw is filled; else pixel 0 of the first pair, widened here */
+    int32_t x_px;          /* bytes from pixel 0 to pixel 1 (a pair is 2 * x_px further) */
+    uint32_t off;          /* -in_zp in both int16 lanes */
+    int32_t runs;          /* pixel pairs, >= 1 (1 when x is NULL) */
+    int32_t y_px;          /* bytes from y0 to y1, likewise */
 } tg_mat_job_t;
 
 void tg_mat_dsp_short(const tg_mat_job_t *job);
 void tg_mat_dsp_long(const tg_mat_job_t *job);
 
-/* Registers in the loop: r0-r3 the sums (pixel 0 c0, c1; pixel 1 c0, c1), r4-r7 a group of
+/* Per pixel pair (runs of them): with x given, both pixels' k_len = 4 * groups values are
+ * widened into the pair buffer first (label 7; x_px >= 4 * groups). Then per channel pair,
+ * registers in the loop: r0-r3 the sums (pixel 0 c0, c1; pixel 1 c0, c1), r4-r7 a group of
  * the pair buffer (pixel 0's two words, pixel 1's), r8-r11 the group's weights (c0's two
  * words, c1's), r12 the pair buffer, lr the pack. The body is TG_MAT_CHUNK groups unrolled;
  * a record's pass jumps into it so that the last group ends at label 3 (every group is ten
  * 32-bit instructions, 40 bytes). The long routine runs further whole chunks, counted on
  * the stack. Frame: [sp] y0, [sp, #4] y1, [sp, #8] y0 end, [sp, #12] pair buffer,
- * [sp, #16] entry address, [sp, #20] chunks after the first, [sp, #24] chunks left. */
+ * [sp, #16] entry address, [sp, #20] chunks after the first, [sp, #24] chunks left,
+ * [sp, #28] the job, [sp, #32] the next pair's x, [sp, #36] pixel pairs left. */
 __asm__(
     ".syntax unified\n"
     ".macro tg_mat_dsp name, long\n"
@@ -265,7 +273,11 @@ __asm__(
     ".thumb_func\n"
     "\\name:\n"
     "    push    {r4-r11, lr}\n"
-    "    sub     sp, sp, #32\n"
+    "    sub     sp, sp, #40\n"
+    "    str     r0, [sp, #28]\n"
+    "    ldr     r1, [r0, #24]\n"
+    "    ldr     r2, [r0, #36]\n"
+    "    strd    r1, r2, [sp, #32]\n"
     "    ldr     r1, [r0, #8]\n"
     "    ldr     r2, [r0, #12]\n"
     "    ldr     r3, [r0, #16]\n"
@@ -284,7 +296,27 @@ __asm__(
     "    mls     r2, r1, r3, r2\n"
     "    orr     r2, r2, #1\n"
     "    str     r2, [sp, #16]\n"
-    "    ldr     lr, [r0, #4]\n"
+    "7:  ldr     r0, [sp, #28]\n"
+    "    ldr     r1, [sp, #32]\n"
+    "    cbz     r1, 8f\n"
+    "    ldr     r3, [r0, #28]\n"
+    "    add     r2, r1, r3\n"
+    "    add     r3, r2, r3\n"
+    "    str     r3, [sp, #32]\n"
+    "    ldr     r3, [r0, #20]\n"
+    "    ldr     r12, [r0, #32]\n"
+    "    ldr     lr, [r0, #0]\n"
+    "6:  ldr     r4, [r1], #4\n"
+    "    ldr     r5, [r2], #4\n"
+    "    sxtab16 r6, r12, r4\n"
+    "    sxtab16 r7, r12, r4, ror #8\n"
+    "    sxtab16 r8, r12, r5\n"
+    "    sxtab16 r9, r12, r5, ror #8\n"
+    "    stmia   lr!, {r6-r9}\n"
+    "    subs    r3, r3, #1\n"
+    "    bne     6b\n"
+    "8:  ldr     lr, [r0, #4]\n"
+    "    ldr     r12, [sp, #12]\n"
     "1:  ldmia   lr!, {r0-r3}\n"
     ".if \\long\n"
     "    ldr     r4, [sp, #20]\n"
@@ -334,7 +366,20 @@ __asm__(
     "    stmia   sp, {r4, r5}\n"
     "    cmp     r4, r6\n"
     "    bne     1b\n"
-    "    add     sp, sp, #32\n"
+    "    ldr     r0, [sp, #36]\n"
+    "    subs    r0, r0, #1\n"
+    "    beq     9f\n"
+    "    str     r0, [sp, #36]\n"
+    "    ldr     r0, [sp, #28]\n"
+    "    ldr     r1, [r0, #40]\n"
+    "    ldr     r2, [r0, #16]\n"
+    "    sub     r4, r4, r2, lsl #1\n"
+    "    add     r4, r4, r1, lsl #1\n"
+    "    add     r5, r4, r1\n"
+    "    add     r6, r4, r2, lsl #1\n"
+    "    stmia   sp, {r4-r6}\n"
+    "    b       7b\n"
+    "9:  add     sp, sp, #40\n"
     "    pop     {r4-r11, pc}\n"
     ".size \\name, .-\\name\n"
     ".popsection\n"
@@ -342,6 +387,15 @@ __asm__(
     "tg_mat_dsp tg_mat_dsp_short, 0\n"
     "tg_mat_dsp tg_mat_dsp_long, 1\n"
     ".purgem tg_mat_dsp\n");
+
+static void tg_mat_dsp(tg_mat_job_t *job)
+{
+    if (job->groups <= TG_MAT_CHUNK) {
+        tg_mat_dsp_short(job);
+    } else {
+        tg_mat_dsp_long(job);
+    }
+}
 #endif
 
 /* All channels of the group for the pixel pair in xw (fast: tg_mat_fast(grp->rq)). */
@@ -357,11 +411,12 @@ static void tg_mat_channels(const tg_mat_group_t *grp, const int16_t *xw, void *
         job.y1 = (int8_t *)y1;
         job.pairs = grp->nc >> 1;
         job.groups = (grp->k_len + 3) >> 2;
-        if (job.groups <= TG_MAT_CHUNK) {
-            tg_mat_dsp_short(&job);
-        } else {
-            tg_mat_dsp_long(&job);
-        }
+        job.x = NULL;
+        job.x_px = 0;
+        job.off = 0;
+        job.runs = 1;
+        job.y_px = 0;
+        tg_mat_dsp(&job);
         if (grp->nc & 1) {
             tg_mat_pairs_c(grp, xw, grp->nc >> 1, (grp->nc >> 1) + 1, y0, y1);
         }
@@ -371,6 +426,37 @@ static void tg_mat_channels(const tg_mat_group_t *grp, const int16_t *xw, void *
     (void)fast;
 #endif
     tg_mat_pairs_c(grp, xw, 0, (grp->nc + 1) >> 1, y0, y1);
+}
+
+/* runs pixel pairs, widened and run against all channels in one call: pair q's pixels at
+ * x + 2q*x_px and x + (2q+1)*x_px, their outputs likewise y_px apart from y. Returns 0
+ * when this case is not the assembly's (the caller then goes pair by pair): it needs
+ * tg_mat_fast, an even channel count and k_len a multiple of four. */
+static int tg_mat_run(const tg_mat_group_t *grp, const int8_t *x, int32_t x_px, int32_t in_zp,
+                      int16_t *xw, int8_t *y, int32_t y_px, int32_t runs, int fast)
+{
+#if TG_MAT_ASM
+    if (fast && runs > 0 && grp->nc >= 2 && (grp->nc & 1) == 0 && (grp->k_len & 3) == 0) {
+        tg_mat_job_t job;
+        job.xw = xw;
+        job.pack = grp->rec;
+        job.y0 = y;
+        job.y1 = y + y_px;
+        job.pairs = grp->nc >> 1;
+        job.groups = grp->k_len >> 2;
+        job.x = x;
+        job.x_px = x_px;
+        job.off = (uint32_t)(uint16_t)(-in_zp) * 0x00010001u;
+        job.runs = runs;
+        job.y_px = y_px;
+        tg_mat_dsp(&job);
+        return 1;
+    }
+#else
+    (void)grp, (void)x, (void)x_px, (void)in_zp, (void)xw, (void)y, (void)y_px, (void)runs;
+    (void)fast;
+#endif
+    return 0;
 }
 
 #endif /* TG_MAT_H */
