@@ -432,8 +432,9 @@ static void tg_mat_channels(const tg_mat_group_t *grp, const int16_t *xw, void *
  * x + 2q*x_px and x + (2q+1)*x_px, their outputs likewise y_px apart from y. Returns 0
  * when this case is not the assembly's (the caller then goes pair by pair): it needs
  * tg_mat_fast, an even channel count and k_len a multiple of four. */
-static int tg_mat_run(const tg_mat_group_t *grp, const int8_t *x, int32_t x_px, int32_t in_zp,
-                      int16_t *xw, int8_t *y, int32_t y_px, int32_t runs, int fast)
+static inline int tg_mat_run(const tg_mat_group_t *grp, const int8_t *x, int32_t x_px,
+                             int32_t in_zp, int16_t *xw, int8_t *y, int32_t y_px,
+                             int32_t runs, int fast)
 {
 #if TG_MAT_ASM
     if (fast && runs > 0 && grp->nc >= 2 && (grp->nc & 1) == 0 && (grp->k_len & 3) == 0) {
