@@ -12,15 +12,21 @@
  *   per group of four, for c0 then c1: the int16 pairs (w'[k], w'[k+2]), (w'[k+1], w'[k+3])
  *   with w' = w - w_zp (low half first; zero past k_len);
  *   mult, add, r of c0 and of c1 (rq TG_RQ_FAST; zeros otherwise).
+ * A prescaled pack (tinygen.reference.mat.prescaled_constants; any fixed-point form) holds
+ * channel c's weights and bias times 2^p_c, p_c in [0, 7], chosen so that every channel's
+ * constants are mult, add, TG_MAT_R | TG_MAT_PRESCALED and apply to the sum with no
+ * pre-shift: the assembly then ends each output in one SMMLA and one SSAT with the shift as
+ * an immediate.
  * A missing last c1 (odd channel count) has an all-zero record half and is never written.
  * So a pass over the pair buffer runs one channel pair against both pixels: every
  * pair-buffer word meets two channels and every weight word two pixels, one dual MAC each.
  * Partial sums are the bias plus terms (x - in_zp) * (w - w_zp) of magnitude <= 255 * 255,
  * inside the accumulator bound the compiler proved (passes/overflow.py).
  *
- * Cores with the DSP extension run the channel pairs in one assembly routine when the
- * requantization is TG_RQ_FAST without a pre-shift and the clamp is the int8 range (what
- * the compiler gives most layers; tg_mat_fast): all fourteen free registers hold the
+ * Cores with the DSP extension run the channel pairs in one assembly routine when the pack
+ * is prescaled, or the requantization is TG_RQ_FAST without a pre-shift, and the clamp is
+ * the int8 range (what the compiler gives most layers; tg_mat_mode): all fourteen free
+ * registers hold the
  * block, a group costs two LDMs and eight SMLADs, a record's bias starts the sums and its
  * constants follow the weights, so one pointer walks the pack. Everything else runs
  * tg_mat_pairs_c, the plain statement of the same loop, which compilers vectorise. The
@@ -43,6 +49,10 @@
 
 
 #define TG_MAT_CHUNK 8  /* groups of four in the unrolled assembly body */
+#define TG_MAT_R 11          /* the final shift of a prescaled pack */
+#define TG_MAT_PRESCALED 256 /* beside r in the r words of a prescaled pack's records */
+#define TG_MAT_STR(v) TG_MAT_STR2(v)
+#define TG_MAT_STR2(v) #v
 
 /* int16 elements of the pair buffer for vectors of k_len values (two pixels). */
 #define TG_MAT_PAIR_ELEMS(k_len) (2 * (((k_len) + 3) & ~3))
@@ -161,7 +171,7 @@ TG_INLINE void tg_mat_put_fast(void *y, int32_t c, const int32_t *k, int32_t acc
                                int32_t lo, int32_t hi)
 {
     const int32_t top = (int32_t)(((int64_t)(int32_t)((uint32_t)acc << pre) * k[0]) >> 32);
-    const int32_t v = (int32_t)((uint32_t)top + (uint32_t)k[1]) >> k[2];
+    const int32_t v = (int32_t)((uint32_t)top + (uint32_t)k[1]) >> (k[2] & 31);
     ((int8_t *)y)[c] = (int8_t)(v < lo ? lo : (v > hi ? hi : v));
 }
 
@@ -181,7 +191,10 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
 {
     const int32_t groups = (grp->k_len + 3) >> 2, words = tg_mat_record_words(grp->k_len);
     const int32_t *rec = grp->rec + j0 * words;
-    const int fast_form = grp->rq != NULL && grp->rq->form == TG_RQ_FAST;
+    /* A prescaled pack's constants hold for any fixed form, with no pre-shift. */
+    const int prescaled = grp->rq != NULL && (grp->rec[4 + 4 * groups + 2] & TG_MAT_PRESCALED);
+    const int fast_form = prescaled || (grp->rq != NULL && grp->rq->form == TG_RQ_FAST);
+    const int32_t pre = prescaled || grp->rq == NULL ? 0 : grp->rq->pre;
     int32_t j, g, l;
     for (j = j0; j < j1; ++j, rec += words) {
         const int32_t *wp = rec + 4;
@@ -209,7 +222,7 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
             }
         }
         if (fast_form) {  /* the record's constants, inline: no per-output dispatch */
-            const int32_t pre = grp->rq->pre, lo = grp->rq->act_min, hi = grp->rq->act_max;
+            const int32_t lo = grp->rq->act_min, hi = grp->rq->act_max;
             const int32_t *e = rec + 4 + 4 * groups;  /* mult, add, r of c0, then of c1 */
             tg_mat_put_fast(y0, c, e, a00, pre, lo, hi);
             tg_mat_put_fast(y1, c, e, a10, pre, lo, hi);
@@ -228,11 +241,17 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
     }
 }
 
-/* The assembly's case: TG_RQ_FAST, no pre-shift, the saturation is the whole clamp. */
-static int tg_mat_fast(const tg_requant_t *rq)
+/* Which assembly routines a layer can take: 0 none (the C), 1 TG_RQ_FAST without a
+ * pre-shift, 2 a prescaled pack; both need the saturation to be the whole clamp. */
+static int tg_mat_mode(const tg_requant_t *rq, const int32_t *pack, int32_t k_len)
 {
-    return rq != NULL && rq->form == TG_RQ_FAST && rq->pre == 0 && rq->act_min == -128
-           && rq->act_max == 127;
+    if (rq == NULL || rq->act_min != -128 || rq->act_max != 127) {
+        return 0;
+    }
+    if (pack[4 + 4 * ((k_len + 3) >> 2) + 2] & TG_MAT_PRESCALED) {
+        return 2;
+    }
+    return rq->form == TG_RQ_FAST && rq->pre == 0 ? 1 : 0;
 }
 
 #if TG_MAT_ASM
@@ -252,6 +271,8 @@ typedef struct {
 
 void tg_mat_dsp_short(const tg_mat_job_t *job);
 void tg_mat_dsp_long(const tg_mat_job_t *job);
+void tg_mat_dsp_short_r(const tg_mat_job_t *job);
+void tg_mat_dsp_long_r(const tg_mat_job_t *job);
 
 /* Per pixel pair (runs of them): with x given, both pixels' k_len = 4 * groups values are
  * widened into the pair buffer first (label 7; x_px >= 4 * groups). Then per channel pair,
@@ -265,7 +286,7 @@ void tg_mat_dsp_long(const tg_mat_job_t *job);
  * [sp, #28] the job, [sp, #32] the next pair's x, [sp, #36] pixel pairs left. */
 __asm__(
     ".syntax unified\n"
-    ".macro tg_mat_dsp name, long\n"
+    ".macro tg_mat_dsp name, long, rimm\n"
     ".pushsection .text.\\name,\"ax\",%progbits\n"
     ".balign 4\n"
     ".type \\name, %function\n"
@@ -346,6 +367,16 @@ __asm__(
     "4:\n"
     ".endif\n"
     "    ldmia   lr!, {r4-r9}\n"
+    ".if \\rimm\n"
+    "    smmla   r0, r0, r4, r5\n"
+    "    ssat    r0, #8, r0, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    "    smmla   r2, r2, r4, r5\n"
+    "    ssat    r2, #8, r2, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    "    smmla   r1, r1, r7, r8\n"
+    "    ssat    r1, #8, r1, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    "    smmla   r3, r3, r7, r8\n"
+    "    ssat    r3, #8, r3, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    ".else\n"
     "    smmla   r0, r0, r4, r5\n"
     "    asr     r0, r0, r6\n"
     "    ssat    r0, #8, r0\n"
@@ -358,6 +389,7 @@ __asm__(
     "    smmla   r3, r3, r7, r8\n"
     "    asr     r3, r3, r9\n"
     "    ssat    r3, #8, r3\n"
+    ".endif\n"
     "    ldmia   sp, {r4-r6, r12}\n"
     "    strb    r0, [r4], #1\n"
     "    strb    r1, [r4], #1\n"
@@ -384,21 +416,24 @@ __asm__(
     ".size \\name, .-\\name\n"
     ".popsection\n"
     ".endm\n"
-    "tg_mat_dsp tg_mat_dsp_short, 0\n"
-    "tg_mat_dsp tg_mat_dsp_long, 1\n"
+    "tg_mat_dsp tg_mat_dsp_short, 0, 0\n"
+    "tg_mat_dsp tg_mat_dsp_long, 1, 0\n"
+    "tg_mat_dsp tg_mat_dsp_short_r, 0, 1\n"
+    "tg_mat_dsp tg_mat_dsp_long_r, 1, 1\n"
     ".purgem tg_mat_dsp\n");
 
-static void tg_mat_dsp(tg_mat_job_t *job)
+/* The routine for the job's length and the layer's mode (tg_mat_mode, 1 or 2). */
+static void tg_mat_dsp(tg_mat_job_t *job, int mode)
 {
     if (job->groups <= TG_MAT_CHUNK) {
-        tg_mat_dsp_short(job);
+        (mode == 2 ? tg_mat_dsp_short_r : tg_mat_dsp_short)(job);
     } else {
-        tg_mat_dsp_long(job);
+        (mode == 2 ? tg_mat_dsp_long_r : tg_mat_dsp_long)(job);
     }
 }
 #endif
 
-/* All channels of the group for the pixel pair in xw (fast: tg_mat_fast(grp->rq)). */
+/* All channels of the group for the pixel pair in xw (fast: tg_mat_mode of the layer). */
 static void tg_mat_channels(const tg_mat_group_t *grp, const int16_t *xw, void *y0, void *y1,
                             int fast)
 {
@@ -416,7 +451,7 @@ static void tg_mat_channels(const tg_mat_group_t *grp, const int16_t *xw, void *
         job.off = 0;
         job.runs = 1;
         job.y_px = 0;
-        tg_mat_dsp(&job);
+        tg_mat_dsp(&job, fast);
         if (grp->nc & 1) {
             tg_mat_pairs_c(grp, xw, grp->nc >> 1, (grp->nc >> 1) + 1, y0, y1);
         }
@@ -431,7 +466,7 @@ static void tg_mat_channels(const tg_mat_group_t *grp, const int16_t *xw, void *
 /* runs pixel pairs, widened and run against all channels in one call: pair q's pixels at
  * x + 2q*x_px and x + (2q+1)*x_px, their outputs likewise y_px apart from y. Returns 0
  * when this case is not the assembly's (the caller then goes pair by pair): it needs
- * tg_mat_fast, an even channel count and k_len a multiple of four. */
+ * an assembly mode (fast, tg_mat_mode), an even channel count and k_len a multiple of 4. */
 static inline int tg_mat_run(const tg_mat_group_t *grp, const int8_t *x, int32_t x_px,
                              int32_t in_zp, int16_t *xw, int8_t *y, int32_t y_px,
                              int32_t runs, int fast)
@@ -450,7 +485,7 @@ static inline int tg_mat_run(const tg_mat_group_t *grp, const int8_t *x, int32_t
         job.off = (uint32_t)(uint16_t)(-in_zp) * 0x00010001u;
         job.runs = runs;
         job.y_px = y_px;
-        tg_mat_dsp(&job);
+        tg_mat_dsp(&job, fast);
         return 1;
     }
 #else

@@ -205,7 +205,7 @@ void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
     const int32_t x_row = p->in_w * p->in_c, y_row = p->out_w * p->out_c * e;
     const int32_t images = row0 == 0 && row1 == p->out_h ? p->n : 1;
     const int32_t group_words = ((out_pg + 1) >> 1) * tg_mat_record_words(k_len);
-    const int fast = tg_mat_fast(p->rq);
+    const int fast = p->rq != NULL ? tg_mat_mode(p->rq, p->pack, k_len) : 0;
     int32_t *rows = (int32_t *)scratch;
     int8_t *raw0 = (int8_t *)scratch + tg_conv_raw_offset(p), *raw1 = raw0 + raw_len;
     int16_t *xw = (int16_t *)(void *)(raw1 + raw_len);

@@ -23,7 +23,7 @@ void tg_pwconv(const tg_pwconv_params_t *p, const int8_t *x, void *y, void *scra
     const int32_t e = p->rq != NULL ? 1 : 4;  /* output element bytes */
     const int32_t x_row = p->in_w * p->in_c, y_row = p->out_w * p->out_c * e;
     const int32_t x_px = p->stride_w * p->in_c, y_px = p->out_c * e;
-    const int fast = tg_mat_fast(p->rq);
+    const int fast = p->rq != NULL ? tg_mat_mode(p->rq, p->pack, p->in_c) : 0;
     tg_mat_group_t grp;
     int16_t *xw = (int16_t *)scratch;
     int8_t *yb = (int8_t *)y;
