@@ -47,6 +47,10 @@
 #define TG_MAT_ASM 0
 #endif
 
+#ifndef TG_MAT_ROW
+#define TG_MAT_ROW 0  /* tg_fc.c sets it: the one-row routines instead of the pixel-pair ones */
+#endif
+
 
 #define TG_MAT_CHUNK 8  /* groups of four in the unrolled assembly body */
 #define TG_MAT_R 11          /* the final shift of a prescaled pack */
@@ -68,6 +72,41 @@ static int32_t tg_mat_lo16(int32_t word)
 {
     return (int32_t)(int16_t)(uint16_t)((uint32_t)word & 0xFFFFu);
 }
+
+/* One output of channel c (requant channel rc) at y[c]: requantized, or the raw sum. */
+static void tg_mat_put(const tg_requant_t *rq, void *y, int32_t c, int32_t rc, int32_t acc)
+{
+    if (rq != NULL) {
+        ((int8_t *)y)[c] = tg_requant(acc, rq, rc);
+    } else {
+        ((int32_t *)y)[c] = acc;
+    }
+}
+
+/* y[c] = TG_RQ_FAST of acc (shifted left by pre) clamped to [lo, hi]: one clamp, since
+ * [lo, hi] lies inside the int8 range the form saturates to. */
+TG_INLINE void tg_mat_put_fast(void *y, int32_t c, const int32_t *k, int32_t acc, int32_t pre,
+                               int32_t lo, int32_t hi)
+{
+    const int32_t top = (int32_t)(((int64_t)(int32_t)((uint32_t)acc << pre) * k[0]) >> 32);
+    const int32_t v = (int32_t)((uint32_t)top + (uint32_t)k[1]) >> (k[2] & 31);
+    ((int8_t *)y)[c] = (int8_t)(v < lo ? lo : (v > hi ? hi : v));
+}
+
+/* Which assembly routines a layer can take: 0 none (the C), 1 TG_RQ_FAST without a
+ * pre-shift, 2 a prescaled pack; both need the saturation to be the whole clamp. */
+static inline int tg_mat_mode(const tg_requant_t *rq, const int32_t *pack, int32_t k_len)
+{
+    if (rq == NULL || rq->act_min != -128 || rq->act_max != 127) {
+        return 0;
+    }
+    if (pack[4 + 4 * ((k_len + 3) >> 2) + 2] & TG_MAT_PRESCALED) {
+        return 2;
+    }
+    return rq->form == TG_RQ_FAST && rq->pre == 0 ? 1 : 0;
+}
+
+#if !TG_MAT_ROW /* ---- two pixels x two channels: tg_pwconv, tg_conv ---- */
 
 #if TG_DSP
 /* Both pixels into the pair buffer, a group of four per step: SXTAB16 of an input word gives
@@ -155,26 +194,6 @@ static void tg_mat_widen2(const int8_t *p0, const int8_t *p1, int32_t k_len, int
 #endif
 }
 
-/* One output of channel c (requant channel rc) at y[c]: requantized, or the raw sum. */
-static void tg_mat_put(const tg_requant_t *rq, void *y, int32_t c, int32_t rc, int32_t acc)
-{
-    if (rq != NULL) {
-        ((int8_t *)y)[c] = tg_requant(acc, rq, rc);
-    } else {
-        ((int32_t *)y)[c] = acc;
-    }
-}
-
-/* y[c] = TG_RQ_FAST of acc (shifted left by pre) clamped to [lo, hi]: one clamp, since
- * [lo, hi] lies inside the int8 range the form saturates to. */
-TG_INLINE void tg_mat_put_fast(void *y, int32_t c, const int32_t *k, int32_t acc, int32_t pre,
-                               int32_t lo, int32_t hi)
-{
-    const int32_t top = (int32_t)(((int64_t)(int32_t)((uint32_t)acc << pre) * k[0]) >> 32);
-    const int32_t v = (int32_t)((uint32_t)top + (uint32_t)k[1]) >> (k[2] & 31);
-    ((int8_t *)y)[c] = (int8_t)(v < lo ? lo : (v > hi ? hi : v));
-}
-
 /* The channels of one group for the pixel pair in xw. */
 typedef struct {
     const int32_t *rec;      /* the group's first record */
@@ -239,19 +258,6 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
             tg_mat_put(grp->rq, y1, c + 1, grp->c_base + c + 1, a11);
         }
     }
-}
-
-/* Which assembly routines a layer can take: 0 none (the C), 1 TG_RQ_FAST without a
- * pre-shift, 2 a prescaled pack; both need the saturation to be the whole clamp. */
-static int tg_mat_mode(const tg_requant_t *rq, const int32_t *pack, int32_t k_len)
-{
-    if (rq == NULL || rq->act_min != -128 || rq->act_max != 127) {
-        return 0;
-    }
-    if (pack[4 + 4 * ((k_len + 3) >> 2) + 2] & TG_MAT_PRESCALED) {
-        return 2;
-    }
-    return rq->form == TG_RQ_FAST && rq->pre == 0 ? 1 : 0;
 }
 
 #if TG_MAT_ASM
@@ -494,5 +500,216 @@ static inline int tg_mat_run(const tg_mat_group_t *grp, const int8_t *x, int32_t
 #endif
     return 0;
 }
+
+#else /* ---- one row x four channels: tg_fc ------------------------------------------- */
+
+/* A row's sums are its pack's bias plus terms x * w' with no input offset: the fc pack
+ * (tinygen.reference.fc.fc_pack) folds the zero point into the bias, which may wrap, so
+ * the sums are taken modulo 2^32 (uint32_t); they end as the exact accumulator. */
+
+/* Channel pairs [j0, j1) of a pack of nc channels for the row x (k_len values), any
+ * requantization (rq NULL: int32 outputs); y points at channel 0. */
+static void tg_mat_row_c(const int32_t *pack, const tg_requant_t *rq, const int8_t *x,
+                         int32_t k_len, int32_t nc, int32_t j0, int32_t j1, void *y)
+{
+    const int32_t groups = (k_len + 3) >> 2, words = tg_mat_record_words(k_len);
+    const int32_t *rec = pack + j0 * words;
+    const int prescaled = rq != NULL && (pack[4 + 4 * groups + 2] & TG_MAT_PRESCALED);
+    const int fast_form = prescaled || (rq != NULL && rq->form == TG_RQ_FAST);
+    const int32_t pre = prescaled || rq == NULL ? 0 : rq->pre;
+    int32_t j, g, k;
+    for (j = j0; j < j1; ++j, rec += words) {
+        const int32_t c = 2 * j;
+        const int32_t *wg = rec + 4;
+        uint32_t a0 = (uint32_t)rec[0], a1 = (uint32_t)rec[1];
+        for (g = 0; g < k_len >> 2; ++g, wg += 4) {  /* lanes: words (k, k+2), (k+1, k+3) */
+            const int8_t *xg = x + 4 * g;
+            a0 += (uint32_t)(xg[0] * tg_mat_lo16(wg[0]) + xg[1] * tg_mat_lo16(wg[1])
+                             + xg[2] * (wg[0] >> 16) + xg[3] * (wg[1] >> 16));
+            a1 += (uint32_t)(xg[0] * tg_mat_lo16(wg[2]) + xg[1] * tg_mat_lo16(wg[3])
+                             + xg[2] * (wg[2] >> 16) + xg[3] * (wg[3] >> 16));
+        }
+        for (k = k_len & ~3; k < k_len; ++k) {  /* input k: word (k & 1) of its group, half k & 2 */
+            const int32_t *wg = rec + 4 + 4 * (k >> 2) + (k & 1);
+            const int32_t u = wg[0], v = wg[2];
+            const int32_t wu = (k & 2) ? u >> 16 : tg_mat_lo16(u);
+            const int32_t wv = (k & 2) ? v >> 16 : tg_mat_lo16(v);
+            a0 += (uint32_t)(x[k] * wu);
+            a1 += (uint32_t)(x[k] * wv);
+        }
+        if (fast_form) {
+            const int32_t lo = rq->act_min, hi = rq->act_max;
+            const int32_t *e = rec + 4 + 4 * groups;  /* mult, add, r of c0, then of c1 */
+            tg_mat_put_fast(y, c, e, (int32_t)a0, pre, lo, hi);
+            if (c + 1 < nc) {
+                tg_mat_put_fast(y, c + 1, e + 3, (int32_t)a1, pre, lo, hi);
+            }
+            continue;
+        }
+        tg_mat_put(rq, y, c, c, (int32_t)a0);
+        if (c + 1 < nc) {
+            tg_mat_put(rq, y, c + 1, c + 1, (int32_t)a1);
+        }
+    }
+}
+
+#if TG_MAT_ASM
+/* What the row routines read (offsets 0..20 on 32-bit Arm). */
+typedef struct {
+    const int8_t *x;       /* the row; k_len = 4 * groups values, read a word at a time */
+    const int32_t *pack;   /* first record */
+    int8_t *y;             /* channel 0 */
+    int32_t quads;         /* whole groups of four channels (two records), >= 1 */
+    int32_t groups;        /* groups of four inputs, >= 1 */
+    int32_t rec_bytes;     /* bytes of one record */
+} tg_mat_row_job_t;
+
+void tg_mat_row_dsp(const tg_mat_row_job_t *job);
+void tg_mat_row_dsp_r(const tg_mat_row_job_t *job);
+
+/* Two records (four channels) per pass against the row. Registers in the loop: r0-r3 the
+ * sums (record A's c0, c1, record B's c0, c1), r4/r5 an input word widened by SXTB16 into
+ * its odd and even lanes, r6-r9 a record's weights of the group, r10 the row, r11 record
+ * A, r12 record B, lr the chunks left. The body is TG_MAT_CHUNK groups unrolled, entered so
+ * that the last group ends at label 3 (every group is thirteen 32-bit instructions, 52
+ * bytes). Frame: [sp] y, [sp, #4] the row, [sp, #8] chunks after the first, [sp, #12]
+ * entry address, [sp, #16] quads left, [sp, #20] record bytes (0: record B is A). */
+__asm__(
+    ".syntax unified\n"
+    ".macro tg_mat_row name, rimm\n"
+    ".pushsection .text.\\name,\"ax\",%progbits\n"
+    ".balign 4\n"
+    ".type \\name, %function\n"
+    ".thumb\n"
+    ".thumb_func\n"
+    "\\name:\n"
+    "    push    {r4-r11, lr}\n"
+    "    sub     sp, sp, #24\n"
+    "    ldr     r1, [r0, #8]\n"
+    "    ldr     r2, [r0, #0]\n"
+    "    strd    r1, r2, [sp]\n"
+    "    ldr     r1, [r0, #12]\n"
+    "    ldr     r2, [r0, #20]\n"
+    "    strd    r1, r2, [sp, #16]\n"
+    "    ldr     r1, [r0, #16]\n"
+    "    sub     r4, r1, #1\n"
+    "    lsr     r4, r4, #3\n"
+    "    str     r4, [sp, #8]\n"
+    "    sub     r1, r1, r4, lsl #3\n"
+    "    adr.w   r3, 3f\n"
+    "    mov     r4, #52\n"
+    "    mls     r3, r1, r4, r3\n"
+    "    orr     r3, r3, #1\n"
+    "    str     r3, [sp, #12]\n"
+    "    ldr     r11, [r0, #4]\n"
+    "    add     r12, r11, r2\n"
+    "1:  ldrd    r0, r1, [r11], #16\n"
+    "    ldrd    r2, r3, [r12], #16\n"
+    "    ldrd    r10, lr, [sp, #4]\n"
+    "    ldr     pc, [sp, #12]\n"
+    "2:\n"
+    ".rept 8\n"
+    "    ldr.w   r4, [r10], #4\n"
+    "    sxtb16  r5, r4\n"
+    "    sxtb16  r4, r4, ror #8\n"
+    "    ldmia.w r11!, {r6-r9}\n"
+    "    smlad   r0, r5, r6, r0\n"
+    "    smlad   r0, r4, r7, r0\n"
+    "    smlad   r1, r5, r8, r1\n"
+    "    smlad   r1, r4, r9, r1\n"
+    "    ldmia.w r12!, {r6-r9}\n"
+    "    smlad   r2, r5, r6, r2\n"
+    "    smlad   r2, r4, r7, r2\n"
+    "    smlad   r3, r5, r8, r3\n"
+    "    smlad   r3, r4, r9, r3\n"
+    ".endr\n"
+    "3:  subs    lr, lr, #1\n"
+    "    bpl     2b\n"
+    "    ldmia   r11!, {r4-r9}\n"
+    ".if \\rimm\n"
+    "    smmla   r0, r0, r4, r5\n"
+    "    ssat    r0, #8, r0, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    "    smmla   r1, r1, r7, r8\n"
+    "    ssat    r1, #8, r1, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    "    ldmia   r12!, {r4-r9}\n"
+    "    smmla   r2, r2, r4, r5\n"
+    "    ssat    r2, #8, r2, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    "    smmla   r3, r3, r7, r8\n"
+    "    ssat    r3, #8, r3, asr #" TG_MAT_STR(TG_MAT_R) "\n"
+    ".else\n"
+    "    smmla   r0, r0, r4, r5\n"
+    "    asr     r0, r0, r6\n"
+    "    ssat    r0, #8, r0\n"
+    "    smmla   r1, r1, r7, r8\n"
+    "    asr     r1, r1, r9\n"
+    "    ssat    r1, #8, r1\n"
+    "    ldmia   r12!, {r4-r9}\n"
+    "    smmla   r2, r2, r4, r5\n"
+    "    asr     r2, r2, r6\n"
+    "    ssat    r2, #8, r2\n"
+    "    smmla   r3, r3, r7, r8\n"
+    "    asr     r3, r3, r9\n"
+    "    ssat    r3, #8, r3\n"
+    ".endif\n"
+    "    ldr     r4, [sp]\n"
+    "    strb    r0, [r4], #1\n"
+    "    strb    r1, [r4], #1\n"
+    "    strb    r2, [r4], #1\n"
+    "    strb    r3, [r4], #1\n"
+    "    str     r4, [sp]\n"
+    "    mov     r11, r12\n"
+    "    ldrd    r3, r4, [sp, #16]\n"
+    "    add     r12, r11, r4\n"
+    "    subs    r3, r3, #1\n"
+    "    str     r3, [sp, #16]\n"
+    "    bne     1b\n"
+    "    add     sp, sp, #24\n"
+    "    pop     {r4-r11, pc}\n"
+    ".size \\name, .-\\name\n"
+    ".popsection\n"
+    ".endm\n"
+    "tg_mat_row tg_mat_row_dsp, 0\n"
+    "tg_mat_row tg_mat_row_dsp_r, 1\n"
+    ".purgem tg_mat_row\n");
+#endif
+
+/* The row x against all nc channels of the pack into y (int8 with rq, else int32). */
+static void tg_mat_row(const int32_t *pack, const tg_requant_t *rq, const int8_t *x,
+                       int32_t k_len, int32_t nc, void *y)
+{
+#if TG_MAT_ASM
+    const int mode = tg_mat_mode(rq, pack, k_len);
+    if (mode != 0 && k_len != 0 && (k_len & 3) == 0) {
+        const int32_t words = tg_mat_record_words(k_len), left = nc & 3;
+        void (*run)(const tg_mat_row_job_t *) = mode == 2 ? tg_mat_row_dsp_r : tg_mat_row_dsp;
+        tg_mat_row_job_t job;
+        job.x = x;
+        job.pack = pack;
+        job.y = (int8_t *)y;
+        job.quads = nc >> 2;
+        job.groups = k_len >> 2;
+        job.rec_bytes = 4 * words;
+        if (job.quads != 0) {
+            run(&job);
+        }
+        if (left != 0) {  /* the last one or two records, into four bytes of the stack */
+            int8_t last[4];
+            int32_t i;
+            job.pack = pack + 2 * (nc >> 2) * words;
+            job.y = last;
+            job.quads = 1;
+            job.rec_bytes = left > 2 ? 4 * words : 0;  /* 0: record B repeats A */
+            run(&job);
+            for (i = 0; i < left; ++i) {
+                ((int8_t *)y)[4 * (nc >> 2) + i] = last[i];
+            }
+        }
+        return;
+    }
+#endif
+    tg_mat_row_c(pack, rq, x, k_len, nc, 0, (nc + 1) >> 1, y);
+}
+
+#endif /* TG_MAT_ROW */
 
 #endif /* TG_MAT_H */
