@@ -118,8 +118,9 @@ def test_existing_outdir_is_kept_without_force(tmp_path):
     (out / "keep.txt").write_text("mine")
     r = tinygen("emit", PUMP, "-o", out)
     assert r.returncode == 2 and (out / "keep.txt").read_text() == "mine"
-    r = tinygen("emit", PUMP, "-o", out, "--force")
-    assert r.returncode == 0 and not (out / "keep.txt").exists()
+    r = tinygen("emit", PUMP, "-o", out, "--force")  # not a tree tinygen wrote: kept too
+    assert r.returncode == 2 and (out / "keep.txt").read_text() == "mine"
+    assert "keep.txt" in r.stderr and len(r.stderr.splitlines()) == 1
 
 
 # -- output conventions and the documented keys (docs/cli.md) -----------------------------

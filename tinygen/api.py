@@ -159,11 +159,12 @@ class Model:
     def emit(self, out_dir: str | Path, *, force: bool = False, add: bool = False
              ) -> list[str]:
         """Write the C tree (as `tinygen emit`); add=True adds it to a folder of models."""
-        from tinygen.codegen.emit import add_model_to_folder, render_tree, write_tree
+        from tinygen.codegen.emit import add_model_to_folder, render_tree
+        from tinygen.codegen.output import write_tree
         files = render_tree(self.compiled, options_text(self.options))
         if add:
             files = add_model_to_folder(self.compiled, files, str(out_dir))
-        return write_tree(files, str(out_dir), force or add)
+        return write_tree(files, str(out_dir), force, add=add, protect=[self.path])
 
     def check(self, samples: int = 100, *, against_onnxruntime: bool = False,
               seed: int = 0) -> dict:

@@ -22,6 +22,7 @@ from tinygen.errors import TinygenError
 from tinygen.harness.host import HostModel
 from tinygen.ir import Graph
 from tinygen.runner import run_reference
+from tinygen.user_input import read_npz
 
 
 @dataclass
@@ -62,13 +63,10 @@ def random_inputs(graph: Graph, n: int, seed: int = 0) -> list[list[np.ndarray]]
 
 def load_labels(path: str, count: int) -> np.ndarray | None:
     """The optional 'labels' array of an --inputs file: (N,) class indices, or None."""
-    try:
-        with np.load(path) as z:
-            if "labels" not in z:
-                return None
-            labels = np.asarray(z["labels"])
-    except (OSError, ValueError) as exc:
-        raise TinygenError(f"cannot read labels: {exc}", file=path) from None
+    arrays, _ = read_npz(path, ("labels",))
+    if "labels" not in arrays:
+        return None
+    labels = arrays["labels"]
     if labels.dtype.kind not in "iu" or labels.ndim != 1 or labels.shape[0] != count or \
             (labels.size and labels.min() < 0):
         raise TinygenError(f"'labels' must be {count} non-negative integers (one class per "
@@ -77,22 +75,46 @@ def load_labels(path: str, count: int) -> np.ndarray | None:
 
 
 def load_inputs(graph: Graph, path: str) -> list[list[np.ndarray]]:
-    """FILE.npz with array 'inputs' (N, *input shape), float32; one-input models only."""
-    try:
-        with np.load(path) as z:
-            if "inputs" not in z:
-                raise TinygenError("the .npz has no array named 'inputs'", file=path)
-            arr = np.asarray(z["inputs"], dtype=np.float32)
-    except (OSError, ValueError) as exc:
-        raise TinygenError(f"cannot read inputs: {exc}", file=path) from None
+    """FILE.npz with array 'inputs' (N, *input shape) of real numbers; one-input models only.
+
+    Refused, one line each: no such array, numbers that are not real (complex, strings,
+    objects), NaN or infinity, zero samples, the wrong shape, and for an integer model input
+    values that are not integers of its type (they would wrap)."""
+    arrays, names = read_npz(path, ("inputs",))
+    if "inputs" not in arrays:
+        raise TinygenError("the .npz has no array named 'inputs' (it holds: "
+                           f"{', '.join(repr(n) for n in names[:5]) or 'none'})", file=path)
+    raw = arrays["inputs"]
+    if raw.dtype.kind not in "fiub":
+        raise TinygenError(f"'inputs' holds {raw.dtype.name} values; give real numbers "
+                           "(float32)", file=path)
     if len(graph.inputs) != 1:
         raise TinygenError("--inputs supports models with one input", file=path)
-    shape = graph.tensors[graph.inputs[0].name].shape
-    if arr.ndim == len(shape):
-        arr = arr[None]
+    io = graph.inputs[0]
+    shape = graph.tensors[io.name].shape
+    arr = raw[None] if raw.ndim == len(shape) else raw
     if tuple(arr.shape[1:]) != tuple(shape):
         raise TinygenError(f"inputs have shape {list(arr.shape[1:])}, the model takes "
                            f"{list(shape)}", file=path)
+    if arr.shape[0] == 0:
+        raise TinygenError("'inputs' holds 0 samples", file=path)
+    with np.errstate(over="ignore", invalid="ignore"):
+        arr = arr.astype(np.float32)
+    bad = ~np.isfinite(arr)
+    if bad.any():
+        first = np.argwhere(bad)[0]
+        raise TinygenError(f"'inputs' holds {int(bad.sum())} NaN or infinite values (or "
+                           f"values beyond float32), the first at sample {first[0]} index "
+                           f"{list(map(int, first[1:]))}", file=path)
+    if io.onnx_dtype != "float32":
+        lo, hi = {"uint8": (0, 255), "int32": (-2**31, 2**31 - 1)}.get(io.buffer_dtype,
+                                                                       (-128, 127))
+        wrong = (arr != np.rint(arr)) | (arr < lo) | (arr > hi)
+        if wrong.any():
+            first = np.argwhere(wrong)[0]
+            raise TinygenError(f"the model's input is {io.onnx_dtype}: 'inputs' must hold "
+                               f"integers in {lo}..{hi}, not {arr[tuple(first)]} (sample "
+                               f"{first[0]})", file=path)
     return [[a] for a in arr]
 
 

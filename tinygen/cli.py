@@ -10,11 +10,14 @@ import argparse
 import json
 import os
 import re
+import signal
 import sys
+import warnings
 
 from tinygen import __version__
-from tinygen.errors import TinygenError
+from tinygen.errors import Interrupted, TinygenError, escape_controls, safe_line
 from tinygen.progress import for_cli
+from tinygen.user_input import check_sample_volume, sample_count
 
 SIZE_RE = re.compile(r"^(0x[0-9a-fA-F]+|\d+)([kKmM]?)$")
 
@@ -112,7 +115,7 @@ def make_parser() -> argparse.ArgumentParser:
     c.add_argument("model")
     src = c.add_mutually_exclusive_group()
     src.add_argument("--inputs", metavar="FILE.npz")
-    src.add_argument("--samples", type=int, default=100, metavar="N")
+    src.add_argument("--samples", type=sample_count, default=100, metavar="N")
     c.add_argument("--against-onnxruntime", action="store_true")
     c.add_argument("--sanitize", action="store_true",
                    help="build with AddressSanitizer and UBSan")
@@ -130,7 +133,7 @@ def make_parser() -> argparse.ArgumentParser:
     em.add_argument("--cpu", required=True,
                     choices=["cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33"])
     em.add_argument("--inputs", metavar="FILE.npz")
-    em.add_argument("--samples", type=int, default=4, metavar="N")
+    em.add_argument("--samples", type=sample_count, default=4, metavar="N")
     em.add_argument("--trace", action="store_true",
                     help="compare every op's output on the core and name the first that differs")
     add_build_flags(em)
@@ -144,7 +147,7 @@ def make_parser() -> argparse.ArgumentParser:
     rsrc = r.add_mutually_exclusive_group()
     rsrc.add_argument("--inputs", metavar="FILE.npz",
                       help="inputs for SQNR (and accuracy, with labels)")
-    rsrc.add_argument("--samples", type=int, default=20, metavar="N")
+    rsrc.add_argument("--samples", type=sample_count, default=20, metavar="N")
     r.add_argument("--float-model", metavar="FILE.onnx",
                    help="the model before quantization: per-layer SQNR")
     add_build_flags(r)
@@ -152,24 +155,43 @@ def make_parser() -> argparse.ArgumentParser:
 
 
 def _say(text: str) -> None:
-    """A diagnostic: stderr."""
-    print(text, file=sys.stderr)
+    """A diagnostic: stderr (control characters from model names shown escaped)."""
+    print(escape_controls(text, keep="\n\t"), file=sys.stderr)
 
 
 def _show(text: str) -> None:
     """A result the user reads: stdout (so `tinygen plan m.onnx | less` shows it)."""
-    print(text)
+    print(escape_controls(text, keep="\n\t"))
+
+
+def _inputs_of(args) -> list[str]:
+    """Every file the command line gives tinygen to read (never to be written over)."""
+    return [p for p in (args.model, getattr(args, "inputs", None),
+                        getattr(args, "float_model", None)) if p]
+
+
+def _samples(args, c) -> list:
+    """The samples to run: the --inputs file, or --samples random ones."""
+    from tinygen.check import load_inputs, random_inputs
+    if args.inputs:
+        return load_inputs(c.graph, args.inputs)
+    check_sample_volume(c.graph, args.samples, args.model)
+    return random_inputs(c.graph, args.samples)
 
 
 def cmd_emit(args) -> int:
-    from tinygen.codegen.emit import render_tree, write_tree
+    from tinygen.codegen.emit import render_tree
+    from tinygen.codegen.output import target_folder, write_tree
     from tinygen.compiler import compile_model, summary
+    mode = "add" if args.add else "force" if args.force else "new"
+    target_folder(args.output, mode, _inputs_of(args))  # refuse before the work, not after
     c = compile_model(args.model, build_options(args))
     files = render_tree(c, flags_text(args))
     if args.add:
         from tinygen.codegen.emit import add_model_to_folder
         files = add_model_to_folder(c, files, args.output)
-    names = write_tree(files, args.output, args.force or args.add)
+    names = write_tree(files, args.output, args.force, add=args.add,
+                       protect=_inputs_of(args))
     info = summary(c)
     info["files"] = names
     info["models"] = sorted(n[:-2] for n in names if n.endswith(".h") and
@@ -191,15 +213,10 @@ def format_summary(info: dict, c) -> str:
 
 
 def cmd_check(args) -> int:
-    from tinygen.check import load_inputs, random_inputs, run_check
+    from tinygen.check import run_check
     from tinygen.compiler import compile_model
     c = compile_model(args.model, build_options(args))
-    if args.inputs:
-        samples = load_inputs(c.graph, args.inputs)
-    else:
-        if args.samples < 1:
-            raise TinygenError("--samples must be >= 1")
-        samples = random_inputs(c.graph, args.samples)
+    samples = _samples(args, c)
     progress = for_cli(args, "check")
     if args.sanitize:
         from tinygen.sanitize import run_sanitized
@@ -253,14 +270,14 @@ def cmd_check(args) -> int:
 def cmd_plan(args) -> int:
     from tinygen.compiler import compile_model, summary
     from tinygen.report.plan_view import plan_svg, plan_table
+    if args.svg is not None:
+        from tinygen.codegen.output import file_target
+        file_target(args.svg, _inputs_of(args), "--svg")  # refuse before the work
     c = compile_model(args.model, build_options(args))
     info = dict(summary(c), const_bytes=c.const_bytes)
-    if args.svg:
-        from pathlib import Path
-        try:
-            Path(args.svg).write_text(plan_svg(c))
-        except OSError as exc:
-            raise TinygenError(f"cannot write {args.svg}: {exc.strerror}") from None
+    if args.svg is not None:
+        from tinygen.codegen.output import write_file
+        write_file(args.svg, plan_svg(c), protect=_inputs_of(args), what="--svg")
     if args.json:
         print(json.dumps(info))
     else:
@@ -276,12 +293,10 @@ def cmd_emulate(args) -> int:
     trace = None
     if args.trace:
         progress.phase(f"trace build on {args.cpu}")
-        from tinygen.check import load_inputs, random_inputs
         from tinygen.compiler import compile_model
         from tinygen.trace import trace_target
         c = compile_model(args.model, build_options(args))
-        data = load_inputs(c.graph, args.inputs) if args.inputs else \
-            random_inputs(c.graph, args.samples)
+        data = _samples(args, c)
         trace = trace_target(c, data, args.cpu, flags_text(args))
         info["trace"] = trace.as_json()
     progress.done()
@@ -299,21 +314,18 @@ def cmd_emulate(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from tinygen.check import load_inputs, random_inputs
+    from tinygen.codegen.output import file_target
     from tinygen.compiler import compile_model, summary
     from tinygen.report.html import measure_layers, write_report
+    file_target(args.output, _inputs_of(args), "report")  # refuse before the work
     c = compile_model(args.model, build_options(args))
-    if args.inputs:
-        samples = load_inputs(c.graph, args.inputs)
-    else:
-        if args.samples < 1:
-            raise TinygenError("--samples must be >= 1")
-        samples = random_inputs(c.graph, args.samples)
+    samples = _samples(args, c)
     progress = for_cli(args, "report").phase("measuring (emulation, SQNR, accuracy)")
     layers = measure_layers(c, args.model, flags_text(args), samples, args.cpu,
                             args.float_model, args.inputs)
     progress.done()
-    write_report(c, args.output, args.budget_ram, args.budget_flash, flags_text(args), layers)
+    write_report(c, args.output, args.budget_ram, args.budget_flash, flags_text(args), layers,
+                 protect=_inputs_of(args))
     if args.json:
         print(json.dumps(dict(summary(c), report=args.output, const_bytes=c.const_bytes)))
     else:
@@ -325,26 +337,52 @@ VERBS = {"emit": cmd_emit, "check": cmd_check, "plan": cmd_plan, "emulate": cmd_
          "report": cmd_report}
 
 
-def _fail(kind: str, text: str, as_json: bool, **fields) -> int:
-    """An error: `tinygen: <kind>: <text>` on stderr; with --json also one object on
-    stdout, {"error": text, "exit_code": 2, ...}."""
+SIGNAL_NAMES = {signal.SIGINT: "SIGINT", signal.SIGTERM: "SIGTERM"}
+
+
+def _fail(kind: str, text: str, as_json: bool, code: int = 2, **fields) -> int:
+    """An error: `tinygen: <kind>: <text>` on stderr, one line whatever it holds; with
+    --json also one object on stdout, {"error": text, "exit_code": code, ...}."""
+    text = safe_line(text)
     print(f"tinygen: {kind}: {text}" if text else f"tinygen: {kind}", file=sys.stderr)
     if as_json:
-        print(json.dumps({"error": text or kind, "exit_code": 2, **fields}))
-    return 2
+        print(json.dumps({"error": text or kind, "exit_code": code, **fields}))
+    return code
 
 
 def main(argv: list[str] | None = None) -> int:
+    """The command line; argv None: this process is tinygen (the console script), which
+    from here on turns SIGINT/SIGTERM into one line and exit 130/143."""
+    from tinygen.codegen.output import interrupts_raise, stop_interrupts
+    process = argv is None
     argv = sys.argv[1:] if argv is None else list(argv)
     as_json = "--json" in (argv[:argv.index("--")] if "--" in argv else argv)
+    try:
+        with interrupts_raise(), warnings.catch_warnings():
+            # numpy and onnx warnings would add lines before the one line of a result
+            warnings.simplefilter("ignore")
+            return _run(argv, as_json)
+    except KeyboardInterrupt as exc:
+        signum = exc.signum if isinstance(exc, Interrupted) else signal.SIGINT
+        return _fail(f"interrupted ({SIGNAL_NAMES.get(signum, signum)})", "", as_json,
+                     128 + signum)
+    finally:
+        if process:  # the exit code is decided: a late signal must not print a traceback
+            stop_interrupts()
+
+
+def _run(argv: list[str], as_json: bool) -> int:
     try:
         args = make_parser().parse_args(argv)
         return VERBS[args.verb](args)
     except TinygenError as exc:
-        return _fail("error", exc.one_line(), as_json, reason=exc.reason, file=exc.file,
-                     node=exc.node, op=exc.op)
-    except KeyboardInterrupt:
-        return _fail("interrupted", "", as_json)
+        return _fail("error", exc.one_line(), as_json, reason=safe_line(exc.reason),
+                     file=safe_line(exc.file), node=safe_line(exc.node), op=safe_line(exc.op))
+    except RecursionError:
+        return _fail("error", "the model nests too deeply to read", as_json)
+    except MemoryError:
+        return _fail("error", "out of memory (the model or the inputs are too large for this "
+                     "machine)", as_json)
     except Exception as exc:  # a bug in tinygen: still one line, still no output written
         if os.environ.get("TINYGEN_TRACEBACK"):
             raise

@@ -211,8 +211,11 @@ class FloatRunner:
 
 def load_float_model(path: str):
     import onnx
+
+    from tinygen.user_input import read_user_file
+    raw = read_user_file(path, "the float model")
     try:
-        return onnx.load(path)
+        return onnx.load_from_string(raw)
     except Exception:
         raise TinygenError("cannot read the float model (not an ONNX file?)", file=path) from None
 

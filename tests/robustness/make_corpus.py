@@ -13,6 +13,8 @@ QOperator chain (QLinearConv, QLinearMatMul); each case breaks one thing in one 
 """
 from __future__ import annotations
 
+import io
+import os
 import sys
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -34,8 +36,23 @@ class Case:
     reason: str  # a fragment the reason must contain (case-insensitive)
     node: str | None = None  # node name the line must contain (None: not required)
     op: str | None = None  # ONNX op type the line must name (None: not required)
-    args: list[str] = field(default_factory=list)
+    args: list[str] = field(default_factory=list)  # "{NAME}" stands for the aux file NAME
     suffix: str = ".onnx"
+    verbs: tuple[str, ...] = ("emit", "check", "plan")  # the first is the one checked closely
+    aux: dict[str, Callable[[Path], None]] = field(default_factory=dict)  # files beside it
+
+    def argv(self, model: Path) -> list[str]:
+        """The flags, with each aux file's place filled in."""
+        out = []
+        for a in self.args:
+            for name in self.aux:
+                a = a.replace("{" + name + "}", str(aux_path(self, model, name)))
+            out.append(a)
+        return out
+
+
+def aux_path(case: Case, model: Path, name: str) -> Path:
+    return model.parent / f"{case.name}.{name}"
 
 
 # -- the two valid models ----------------------------------------------------------------
@@ -495,6 +512,124 @@ def cases() -> list[Case]:
         Case("bad_prefix_keyword", save(qdq_model()), "--prefix", args=["--prefix", "static"]),
         Case("bad_prefix_digit", save(qdq_model()), "--prefix", args=["--prefix", "9lives"]),
         Case("bad_size_flag", save(qdq_model()), "size", args=["--arena-limit", "12Q"]),
+        *user_input_cases(),
+    ]
+
+
+# -- what the command line and the files beside the model hold ------------------------------
+
+def _npz(**arrays) -> Callable[[Path], None]:
+    def make(p: Path) -> None:
+        with open(p, "wb") as fh:
+            np.savez(fh, **arrays)
+    return make
+
+
+def _npy(arr) -> Callable[[Path], None]:
+    def make(p: Path) -> None:
+        with open(p, "wb") as fh:
+            np.save(fh, arr)
+    return make
+
+
+def _npz_lying_header(p: Path) -> None:
+    """An .npz whose 'inputs' header promises 10^12 floats and holds 16 bytes (reading it
+    as numpy does would allocate the lot first)."""
+    import zipfile
+    header = {"descr": "<f4", "fortran_order": False, "shape": (1_000_000, 1, 2, 6, 6)}
+    body = io.BytesIO()
+    np.lib.format.write_array_header_1_0(body, header)
+    with zipfile.ZipFile(p, "w") as z:
+        z.writestr("inputs.npy", body.getvalue() + b"\0" * 16)
+
+
+def _symlink_to(target: str) -> Callable[[Path], None]:
+    return lambda p: p.symlink_to(target)
+
+
+def _fifo(p: Path) -> None:
+    os.mkfifo(p)  # nobody writes to it: reads as empty
+
+
+def _sparse(size: int) -> Callable[[Path], None]:
+    def make(p: Path) -> None:
+        with open(p, "wb") as fh:
+            fh.truncate(size)  # no blocks on disk, stat says `size`
+    return make
+
+
+def _named(node_name: str, tensor_name: str | None = None) -> onnx.ModelProto:
+    """The unsupported-op model with a hostile node name (and a dangling tensor name)."""
+    nodes, inits, ins, outs = qdq_parts()
+    src = tensor_name or "rd"
+    nodes = [helper.make_node("Hardmax", [src], ["p"], name=node_name) if n.name == "pool1"
+             else n for n in nodes]
+    return build(nodes, inits, ins, outs)
+
+
+def user_input_cases() -> list[Case]:
+    """Flags and files that size work or feed data: each refused before it is used."""
+    sym = save(_symbolic_model())
+    good = save(qdq_model())
+    x = np.zeros((2, 1, 2, 6, 6), np.float32)
+    check = ("check",)
+    inputs = ["--inputs", "{inputs}"]
+    return [
+        Case("input_shape_huge_dim", sym, "a dimension over",
+             args=["--input-shape", "x=1x2x100000000000000000000x6"]),
+        Case("input_shape_huge_product", sym, "elements, more than",
+             args=["--input-shape", "x=1x2x100000x100000"]),
+        Case("input_shape_too_many_dims", sym, "dimensions, more than",
+             args=["--input-shape", "x=" + "x".join(["1"] * 9)]),
+        Case("input_shape_twice", sym, "given twice",
+             args=["--input-shape", "x=1x2x6x6", "--input-shape", "x=1x2x6x6"]),
+        Case("input_shape_underscore_digits", sym, "--input-shape",
+             args=["--input-shape", "x=1x2x6_0x6"]),
+        Case("input_shape_overrides_static_dim", good, "where the model fixes 2",
+             args=["--input-shape", "x=1x3x6x6"]),
+        Case("samples_huge", good, "1..10000", args=["--samples", "100000000"], verbs=check),
+        Case("samples_zero", good, "1..10000", args=["--samples", "0"], verbs=check),
+        Case("samples_negative", good, "1..10000", args=["--samples", "-5"], verbs=check),
+        Case("inputs_npy", good, ".npy file", args=inputs, verbs=check,
+             aux={"inputs": _npy(x)}),
+        Case("inputs_not_a_zip", good, "not an .npz", args=inputs, verbs=check,
+             aux={"inputs": write_bytes(b"a,b,c\n1,2,3\n")}),
+        Case("inputs_folder", good, "folder", args=inputs, verbs=check,
+             aux={"inputs": lambda p: p.mkdir()}),
+        Case("inputs_missing", good, "cannot read the inputs", args=inputs, verbs=check,
+             aux={"inputs": lambda p: None}),
+        Case("inputs_no_inputs_array", good, "no array named 'inputs'", args=inputs,
+             verbs=check, aux={"inputs": _npz(data=x)}),
+        Case("inputs_wrong_shape", good, "shape", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=np.zeros((2, 3, 6, 6), np.float32))}),
+        Case("inputs_complex", good, "complex", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=x.astype(np.complex64))}),
+        Case("inputs_strings", good, "str", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=np.array(["a", "b"]))}),
+        Case("inputs_objects", good, "python objects", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=np.array([{}, []], dtype=object))}),
+        Case("inputs_nan", good, "nan", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=np.where(np.arange(x.size).reshape(x.shape) == 7,
+                                                 np.float32(np.nan), x))}),
+        Case("inputs_inf", good, "infinite", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=np.full_like(x, np.inf))}),
+        Case("inputs_beyond_float32", good, "beyond float32", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=np.full(x.shape, 1e300))}),
+        Case("inputs_zero_samples", good, "0 samples", args=inputs, verbs=check,
+             aux={"inputs": _npz(inputs=np.zeros((0, 1, 2, 6, 6), np.float32))}),
+        Case("inputs_lying_header", good, "cut short", args=inputs, verbs=check,
+             aux={"inputs": _npz_lying_header}),
+        Case("float_model_dev_zero", good, "more than", verbs=check,
+             args=["--float-model", "{float}"], aux={"float": _symlink_to("/dev/zero")}),
+        Case("model_dev_zero", _symlink_to("/dev/zero"), "more than"),
+        Case("model_fifo_without_writer", _fifo, "not an ONNX model"),
+        Case("model_too_large", _sparse(600 * 1024 * 1024), "more than"),
+        Case("region_names_differ_in_case", good, "its own name",
+             args=["--region", "fast=1K", "--region", "FAST=1K"]),
+        Case("control_bytes_in_node_name", save(_named("\x1b]0;owned\x07\x1b[2J" + "n" * 10_000)),
+             "not supported", op="Hardmax"),
+        Case("control_bytes_in_tensor_name", save(_named("hm", "\x9b31m\x7f" + "t" * 10_000)),
+             "produced by no node", node="hm", op="Hardmax"),
     ]
 
 
@@ -511,6 +646,8 @@ def write_corpus(out_dir: Path) -> list[tuple[Case, Path]]:
     for case in cases():
         path = out_dir / f"{case.name}{case.suffix}"
         case.make(path)
+        for name, make in case.aux.items():
+            make(aux_path(case, path, name))
         written.append((case, path))
     return written
 

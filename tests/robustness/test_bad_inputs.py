@@ -11,25 +11,30 @@ children forked from this process, which call the same `tinygen.cli.main` that
 """
 from __future__ import annotations
 
-import io
 import json
 import os
 import re
 import subprocess
 import sys
-import tempfile
 from pathlib import Path
 
 import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+import forked_cli  # noqa: E402
 import make_corpus  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]
 CASES = {c.name: c for c in make_corpus.cases()}
 # Errors about a flag rather than the file: the line has no file to name.
 FLAG_ERRORS = {"input_shape_bad_syntax", "bad_prefix_keyword", "bad_prefix_digit",
-               "bad_size_flag"}
+               "bad_size_flag", "input_shape_huge_dim", "input_shape_huge_product",
+               "input_shape_too_many_dims", "input_shape_twice", "input_shape_underscore_digits",
+               "samples_huge", "samples_zero", "samples_negative", "region_names_differ_in_case"}
+# Errors about a file beside the model (--inputs, --float-model): the line names that file.
+AUX_ERRORS = {"inputs": "inputs", "float": "float"}
+# What no error line may hold: C0 controls (a tab or newline would split it), DEL, C1.
+CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
 # One case per kind of failure, run as real `python -m tinygen` subprocesses.
 SUBPROCESS_CASES = ["truncated_50", "float_model", "unsupported_op", "scale_nan",
                     "concat_axis_out_of_range", "arena_limit"]
@@ -48,32 +53,12 @@ def forked(*args: str) -> subprocess.CompletedProcess:
     """Run `tinygen args` in a forked child of this process (POSIX), like a subprocess."""
     if not hasattr(os, "fork"):
         return tinygen(*args)
-    with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
-        sys.stdout.flush()
-        sys.stderr.flush()
-        pid = os.fork()
-        if pid == 0:  # the child: the CLI with fds 1 and 2 on the files, then exit
-            code = 99
-            try:
-                os.dup2(out.fileno(), 1)
-                os.dup2(err.fileno(), 2)
-                sys.stdout = io.TextIOWrapper(os.fdopen(1, "wb", closefd=False))
-                sys.stderr = io.TextIOWrapper(os.fdopen(2, "wb", closefd=False))
-                os.environ.pop("TINYGEN_TRACEBACK", None)
-                from tinygen.cli import main
-                code = main(list(args))
-            except BaseException:  # noqa: B036 - report anything, as a real process would
-                import traceback
-                traceback.print_exc()
-            finally:
-                sys.stdout.flush()
-                sys.stderr.flush()
-                os._exit(code if isinstance(code, int) else 98)
-        _, status = os.waitpid(pid, 0)
-        out.seek(0)
-        err.seek(0)
-        return subprocess.CompletedProcess(args, os.waitstatus_to_exitcode(status),
-                                           out.read().decode(), err.read().decode())
+    return forked_cli.forked(*args)
+
+
+def command(verb: str, case, path: Path, out: Path) -> list[str]:
+    """The command line of one case under one verb (emit writes to `out`)."""
+    return [verb, str(path), *(["-o", str(out)] if verb == "emit" else []), *case.argv(path)]
 
 
 @pytest.fixture(scope="module")
@@ -89,8 +74,7 @@ def results(tmp_path_factory):
     for case, path in make_corpus.write_corpus(base / "models"):
         out = base / "out" / case.name / "tree"
         out.parent.mkdir(parents=True)
-        done[case.name] = (case, path, out, forked("emit", str(path), "-o", str(out),
-                                                   *case.args))
+        done[case.name] = (case, path, out, forked(*command(case.verbs[0], case, path, out)))
     return done
 
 
@@ -105,8 +89,11 @@ def test_bad_input_gives_one_clear_line(results, name):
     assert "Traceback" not in r.stderr and "internal error" not in line, line
     m = LINE.match(line)
     assert m, line
+    assert not CONTROL.search(r.stderr.rstrip("\n")) and len(line) < 1500, line[:300]
     if name not in FLAG_ERRORS:
-        assert m["file"] == str(path), line
+        aux = [make_corpus.aux_path(case, path, a) for a in case.aux if "{" + a + "}" in
+               " ".join(case.args)]
+        assert m["file"] == str(aux[0] if aux else path), line
     if case.node is not None:
         assert m["node"] == case.node, line
     if case.op is not None:
@@ -131,8 +118,35 @@ def test_real_subprocess_prints_the_same_line(results, name, tmp_path):
 
 
 def test_corpus_files_are_small(results):
-    sizes = [p.stat().st_size for _, p, _, _ in results.values() if p.is_file()]
-    assert sizes and max(sizes) < 16 * 1024
+    sizes = [p.stat().st_blocks * 512 for _, p, _, _ in results.values() if p.is_file()]
+    assert sizes and max(sizes) < 16 * 1024  # on disk: model_too_large is a sparse file
+
+
+@pytest.mark.parametrize("verb", ["emit", "check", "plan"])
+def test_whole_corpus_through_every_verb_gives_exit_2_and_no_internal_error(results, verb,
+                                                                            tmp_path):
+    """Every case under every verb that takes its flags: exit 2, one line, never
+    "internal error", no traceback, no output left."""
+    for name, (case, path, _, _) in sorted(results.items()):
+        if verb not in case.verbs:
+            continue
+        out = tmp_path / name / "tree"
+        r = forked(*command(verb, case, path, out))
+        lines = r.stderr.splitlines()
+        assert r.returncode == 2 and len(lines) == 1, (name, r.returncode, r.stderr[-2000:])
+        assert lines[0].startswith("tinygen: error: "), (name, lines[0][:300])
+        assert "internal error" not in r.stderr and "Traceback" not in r.stderr, name
+        assert not CONTROL.search(lines[0]), name
+        assert r.stdout == "" and not out.parent.exists(), name
+
+
+def test_hostile_names_are_escaped_and_capped(results):
+    _, _, _, r = results["control_bytes_in_node_name"]
+    line = r.stderr.splitlines()[0]
+    assert "\\x1b]0;owned\\x07\\x1b[2J" in line and "(10014 chars)" in line, line[:300]
+    _, _, _, r = results["control_bytes_in_tensor_name"]
+    line = r.stderr.splitlines()[0]
+    assert "\\x9b31m\\x7f" in line and "(10005 chars)" in line, line[:300]
 
 
 def _good_model(tmp_path: Path) -> Path:
@@ -159,15 +173,14 @@ def test_existing_outdir_is_untouched_without_force(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["bad.onnx", "good.onnx", "out"]
 
 
-def test_force_replaces_outdir_whole(tmp_path):
+def test_force_replaces_a_tree_tinygen_wrote_whole(tmp_path):
     good = _good_model(tmp_path)
     out = tmp_path / "out"
-    out.mkdir()
-    (out / "keep.txt").write_text("mine")
+    assert forked("emit", str(good), "-o", str(out), "--prefix", "first").returncode == 0
     r = forked("emit", str(good), "-o", str(out), "--force")
     assert r.returncode == 0, r.stderr
     names = sorted(p.name for p in out.iterdir())
-    assert "keep.txt" not in names and "model.c" in names
+    assert "first.c" not in names and "model.c" in names and "tinygen-tree.txt" in names
     assert sorted(p.name for p in tmp_path.iterdir()) == ["good.onnx", "out"]  # no temp left
 
 

@@ -1,15 +1,12 @@
 """Write the C tree for a compiled model: <prefix>.h/.c, the kernels it uses, build snippets.
 
 Identifiers in the C come from the prefix and op/tensor indices only; names from the ONNX
-file appear solely inside comments, escaped by `c_comment_text`. The tree is written to a
-temporary folder next to OUTDIR and renamed into place at the end, so a failure leaves no
-half-written output.
+file appear solely inside comments, escaped by `c_comment_text`. Writing the tree to disk
+(safely, with its manifest) is codegen/output.py's.
 """
 from __future__ import annotations
 
 import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import jinja2
@@ -24,6 +21,7 @@ from tinygen.codegen.cfmt import (
     c_float,
     check_prefix,
 )
+from tinygen.codegen.output import write_tree  # noqa: F401 - its home before output.py
 from tinygen.compiler import Compiled
 from tinygen.errors import TinygenError
 from tinygen.ir import storage_perm
@@ -298,32 +296,3 @@ def add_model_to_folder(c: Compiled, files: dict[str, str], out_dir: str) -> dic
     from tinygen.codegen.folder import add_to_folder
     families = sorted(n[3:-2] for n in files if n.startswith("tg_") and n.endswith(".c"))
     return add_to_folder(files, c.options.prefix, families, config_needs(c), out_dir)
-
-
-def write_tree(files: dict[str, str], out_dir: str, force: bool) -> list[str]:
-    """Write atomically: a sibling temp dir renamed over OUTDIR (existing one needs force)."""
-    out = Path(out_dir)
-    if out.exists() and not force:
-        if not out.is_dir() or any(out.iterdir()):
-            raise TinygenError(f"output folder '{out}' exists and is not empty "
-                               "(use --force to replace it)")
-    parent = out.parent if str(out.parent) else Path(".")
-    try:
-        parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=parent))
-    except OSError as exc:
-        raise TinygenError(f"cannot create output folder '{out}': {exc.strerror}") from None
-    try:
-        for name, text in files.items():
-            (tmp / name).write_text(text)
-        if out.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old.", dir=parent))
-            os.replace(out, old / "tree")
-            os.replace(tmp, out)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, out)
-    except OSError as exc:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise TinygenError(f"cannot write output folder '{out}': {exc.strerror}") from None
-    return sorted(files)

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from tinygen.codegen.cfmt import c_comment_text
+from tinygen.codegen.output import MANIFEST
 from tinygen.errors import TinygenError
 
 SHARED_FILES = ("tg_config.h",)
@@ -81,7 +82,8 @@ def add_to_folder(new: dict[str, str], prefix: str, new_families: list[str],
             raise TinygenError(f"--add: '{folder}' holds model '{m.prefix}'; --prefix "
                                f"'{prefix}' differs only in case (the macros would clash)")
     mine = FolderModel(prefix, sorted(new_families), sorted(new_needs))
-    known = set(SHARED_FILES) | shipped | {n for m in [*others, mine] for n in m.file_names()}
+    known = {*SHARED_FILES, MANIFEST} | shipped | \
+        {n for m in [*others, mine] for n in m.file_names()}
     strangers = sorted(p.name for p in folder.iterdir()
                        if p.name not in known or not p.is_file())
     if strangers:

@@ -8,6 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from tinygen.errors import TinygenError
+from tinygen.frontend.spec import checked_cast
 from tinygen.ir import Graph, IOInfo, Op, QuantParams, Tensor
 
 INT8_MIN, INT8_MAX = -128, 127
@@ -15,14 +16,18 @@ INT8_MIN, INT8_MAX = -128, 127
 
 def to_int8_domain(data: np.ndarray | None, zero_point: np.ndarray, src_dtype) -> tuple:
     """Map uint8 data/zero point to the equivalent int8 ones; int8 passes unchanged."""
-    zp = np.asarray(zero_point, dtype=np.int32)
+    zp = np.asarray(zero_point).astype(np.int64)  # range-checked by Builder.quant
     if np.dtype(src_dtype) == np.uint8:
         zp = zp - 128
         if data is not None:
+            if np.asarray(data).dtype != np.uint8:  # callers pass data of src_dtype
+                raise ValueError(f"uint8 data expected, not {np.asarray(data).dtype}")
             data = (np.asarray(data, dtype=np.int16) - 128).astype(np.int8)
     elif data is not None:
-        data = np.asarray(data).astype(np.int8)
-    return data, zp
+        if np.asarray(data).dtype != np.int8:  # callers pass data of src_dtype (const_int8)
+            raise ValueError(f"int8 data expected, not {np.asarray(data).dtype}")
+        data = np.asarray(data)
+    return data, zp.astype(np.int32)
 
 
 class Builder:
@@ -88,6 +93,7 @@ class Builder:
         return QuantParams(scale.reshape(-1), zp8.reshape(-1).astype(np.int32), axis, src)
 
     def const_int8(self, base: str, data: np.ndarray, quant_src_dtype, quant: QuantParams):
+        data = checked_cast(data, quant_src_dtype, f"constant '{base}'", self.error)
         d8, _ = to_int8_domain(data, np.zeros(1), quant_src_dtype)
         return self.add_tensor(base, d8.shape, "int8", quant, d8)
 

@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from tinygen.errors import TinygenError
-from tinygen.frontend import pointwise, qdq, qop
+from tinygen.frontend import pointwise, qdq, qop, spec
 from tinygen.frontend.build import Builder
 from tinygen.frontend.onnx_loader import ModelView, load_model
 from tinygen.frontend.ops import emit_view, same_quant
@@ -108,6 +108,10 @@ class Lowering:
         v = self.value(name)
         if isinstance(v, Pending):
             v = self.settle(name, v)
+        if isinstance(v, Deq) and v.t.dtype == "int32":
+            # DequantizeLinear allows int32 [onnx]; the kernels take it only as a bias
+            raise self.error(f"{what} '{name}' is DequantizeLinear of int32: int32 tensors are "
+                             "taken only as the bias of Conv, Gemm, or MatMul followed by Add")
         if isinstance(v, Deq):
             return v.t
         if isinstance(v, FloatIn):
@@ -134,6 +138,7 @@ class Lowering:
     # -- the walk -----------------------------------------------------------------------
     def run(self) -> Graph:
         v = self.view
+        spec.check_nodes(v)  # every parameter against the operator spec, before any use
         for name, arr in v.consts.items():
             self.env[name] = Const(arr)
         for name in v.inputs:
@@ -219,6 +224,7 @@ class Lowering:
                 raise fail(f"graph output '{name}' is not computed from quantized tensors")
             if t.is_const:
                 raise fail(f"graph output '{name}' is a constant")
+            spec.check_output_shape(name, v.declared_outputs.get(name), t.shape, v.path)
             src = "int32" if t.dtype == "int32" else (t.quant.src_dtype if t.quant else "int8")
             if onnx_dt is None:
                 onnx_dt = src

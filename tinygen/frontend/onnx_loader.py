@@ -16,6 +16,8 @@ import onnx
 from onnx import helper, numpy_helper, shape_inference
 
 from tinygen.errors import TinygenError
+from tinygen.frontend import spec as model_spec
+from tinygen.user_input import parse_input_shapes, read_user_file
 
 # Ops whose output is folded when every input is a constant: shape arithmetic that
 # exporters leave in graphs (Shape -> Gather -> Concat -> Reshape) and plain constants.
@@ -39,6 +41,10 @@ class ModelView:
     inputs: list[str]
     outputs: list[str]
     opset: dict[str, int] = field(default_factory=dict)
+    # initializers a caller may replace at run time (also graph inputs): never constants
+    overridable: set[str] = field(default_factory=set)
+    # graph outputs' shapes as the file declares them (None: a symbolic dimension)
+    declared_outputs: dict[str, tuple] = field(default_factory=dict)
 
     def attr(self, node: onnx.NodeProto, name: str, default=None):
         for a in node.attribute:
@@ -47,26 +53,8 @@ class ModelView:
         return default
 
 
-def parse_input_shapes(specs: list[str] | None) -> dict[str, tuple[int, ...]]:
-    """Parse --input-shape NAME=1x3x96x96 flags."""
-    out: dict[str, tuple[int, ...]] = {}
-    for spec in specs or []:
-        name, sep, dims = spec.rpartition("=")
-        try:
-            shape = tuple(int(d) for d in dims.lower().split("x"))
-        except ValueError:
-            shape = ()
-        if not sep or not name or not shape or min(shape) <= 0:
-            raise TinygenError(f"--input-shape '{spec}' is not NAME=D1xD2x... with positive dims")
-        out[name] = shape
-    return out
-
-
 def _read_model(path: str) -> tuple[onnx.ModelProto, bytes]:
-    try:
-        raw = Path(path).read_bytes()
-    except OSError as exc:
-        raise TinygenError(f"cannot read the model: {exc.strerror or exc}", file=path) from None
+    raw = read_user_file(path, "the model")
     try:
         model = onnx.load_from_string(raw)
     except Exception:  # protobuf raises several types for truncated or foreign bytes
@@ -101,6 +89,10 @@ def _pin_shapes(model: onnx.ModelProto, pinned: dict[str, tuple[int, ...]], path
             if len(dims) and len(dims) != len(shape):
                 raise TinygenError(f"--input-shape for '{inp.name}' has rank {len(shape)}, "
                                    f"the model says rank {len(dims)}", file=path)
+            for i, (d, want) in enumerate(zip(dims, shape, strict=False)):
+                if d.HasField("dim_value") and d.dim_value != want:
+                    raise TinygenError(f"--input-shape for '{inp.name}' says {want} at axis "
+                                       f"{i}, where the model fixes {d.dim_value}", file=path)
             del dims[:]
             for d in shape:
                 dims.add().dim_value = d
@@ -190,6 +182,7 @@ def _fold(node: onnx.NodeProto, consts: dict[str, np.ndarray], opset: int):
 def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
     """Read, check and fold an ONNX model; every tensor gets a static shape where known."""
     model, raw = _read_model(path)
+    model_spec.check_graph(model, path)
     pinned = parse_input_shapes(input_shapes)
     _pin_shapes(model, pinned, path)
     # dangling inputs and cycles first: our message names the node, the checker's does not
@@ -260,4 +253,6 @@ def load_model(path: str, input_shapes: list[str] | None = None) -> ModelView:
     name = g.name or Path(path).stem
     return ModelView(path=path, sha256=hashlib.sha256(raw).hexdigest(), name=name, nodes=kept,
                      consts=consts, shapes=shapes, dtypes=dtypes, inputs=inputs,
-                     outputs=outputs, opset=opset)
+                     outputs=outputs, opset=opset,
+                     overridable=model_spec.overridable_initializers(model),
+                     declared_outputs=model_spec.declared_output_shapes(model))

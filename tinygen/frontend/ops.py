@@ -15,6 +15,7 @@ from tinygen.frontend.build import (
     broadcast_shape,
     conv_geometry,
 )
+from tinygen.frontend.spec import checked_cast
 from tinygen.ir import QuantParams, Tensor
 
 # Unary functions lowered to a 256-entry table (name -> ONNX op it comes from).
@@ -51,11 +52,12 @@ def bias_to_int32(b: Builder, bias: np.ndarray | None, bias_scale, x_q: QuantPar
     want = (np.float32(x_q.scalar_scale()) *
             np.broadcast_to(np.asarray(w_q.scale, np.float32), (out_channels,)))
     if bias.dtype.kind in "iu" and bias_scale is None:
-        return bias.astype(np.int32)  # QOperator: int32 at s_x * s_w by the ONNX convention
+        # QOperator: int32 at s_x * s_w by the ONNX convention (frontend/spec.py checked it)
+        return checked_cast(bias, np.int32, "bias", b.error)
     if bias.dtype.kind in "iu":
         bs = np.broadcast_to(np.asarray(bias_scale, np.float64), (out_channels,))
         if np.allclose(bs, want, rtol=1e-5, atol=0):
-            return bias.astype(np.int32)
+            return checked_cast(bias, np.int32, "bias", b.error)
         real = bias.astype(np.float64) * bs
     else:
         real = bias.astype(np.float64)
@@ -83,7 +85,8 @@ def emit_conv(b: Builder, out_name: str, x: Tensor, w: Tensor, bias: np.ndarray,
     geo = conv_geometry(b, x.shape, w.shape, attrs)
     shape = (x.shape[0], cout, *geo["out_spatial"])
     y = _out(b, out_name, shape, y_q, "int8" if y_q is not None else "int32")
-    bt = b.add_tensor(out_name + "_bias", bias.shape, "int32", None, bias.astype(np.int32))
+    bt = b.add_tensor(out_name + "_bias", bias.shape, "int32", None,
+                      checked_cast(bias, np.int32, "bias", b.error))
     b.add_op("conv", [x.name, w.name, bt.name], [y.name], group=group, act=act, **geo)
     return y
 
@@ -123,7 +126,8 @@ def emit_fc(b: Builder, out_name: str, x: Tensor, w: Tensor, bias: np.ndarray | 
     y = _out(b, out_name, shape, y_q, "int8" if y_q is not None else "int32")
     inputs = [x.name, w.name]
     if bias is not None:
-        bt = b.add_tensor(out_name + "_bias", (n,), "int32", None, bias.astype(np.int32))
+        bt = b.add_tensor(out_name + "_bias", (n,), "int32", None,
+                          checked_cast(bias, np.int32, "bias", b.error))
         inputs.append(bt.name)
     b.add_op("fc", inputs, [y.name], act=act, w_layout=w_layout, batch=batch)
     return y

@@ -11,6 +11,7 @@ import numpy as np
 
 from tinygen.frontend import ops
 from tinygen.frontend.build import activation_range, quantize_real
+from tinygen.frontend.spec import checked_cast
 from tinygen.ir import QuantParams
 
 # Producers a following Relu/Clip can be folded into (their output clamp).
@@ -126,17 +127,17 @@ def lower_dequantize(L, node) -> None:
 
 
 def _bias(L, name):
-    """(data, scale or None) of a bias input: DQ(int32) or a float constant."""
-    from tinygen.frontend.lower import Const, Deq
+    """(data, scale) of a bias input: DequantizeLinear of an int32 constant (spec.py has
+    refused every other type before this)."""
+    from tinygen.frontend.lower import Deq
 
     if not name:
         return None, None
     v = L.value(name)
     if isinstance(v, Deq) and v.t.is_const and v.t.dtype == "int32":
         return v.t.data, (v.t.quant.scale if v.t.quant is not None else None)
-    if isinstance(v, Const):
-        return np.asarray(v.a, dtype=np.float64), None
-    raise L.error(f"bias '{name}' must be a constant (int32 DequantizeLinear or float)")
+    raise L.error(f"bias '{name}' must be a constant: DequantizeLinear of an int32 "
+                  "initializer")
 
 
 def _attrs(L, node) -> dict:
@@ -298,7 +299,8 @@ def _real_const(L, name: str, what: str) -> np.ndarray:
                           "tensor; one value per channel expected")
         return ((data - np.asarray(q.zero_point, np.int64)).astype(np.float32)
                 * np.asarray(q.scale, np.float32)).astype(np.float32)
-    return np.asarray(L.const(name, what), dtype=np.float32)
+    # float64 (or float16) parameters: float32 only where the value is exactly the same
+    return checked_cast(L.const(name, what), np.float32, f"{what} ('{name}')", L.error)
 
 
 def _fold_bias(L, node, out) -> bool:
@@ -405,7 +407,9 @@ def _pad_value(L, node, x) -> int:
     if isinstance(v, Deq) and v.t.is_const:
         return int(v.t.data.reshape(-1)[0])  # same quantization as x (checked upstream)
     if isinstance(v, Const) and np.asarray(v.a).dtype.kind in "iu":
-        raw = int(np.asarray(v.a).reshape(-1)[0])
+        src = np.uint8 if x.quant.src_dtype == "uint8" else np.int8
+        raw = int(checked_cast(np.asarray(v.a).reshape(-1)[:1], src, "Pad constant_value",
+                               L.error)[0])
         return raw - 128 if x.quant.src_dtype == "uint8" else raw
     if isinstance(v, Const):
         return quantize_real(float(np.asarray(v.a).reshape(-1)[0]), x.quant)

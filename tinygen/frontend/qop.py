@@ -8,6 +8,7 @@ from onnx import helper
 
 from tinygen.frontend import ops
 from tinygen.frontend.build import INT8_MAX, INT8_MIN
+from tinygen.frontend.spec import checked_cast
 
 FULL = (INT8_MIN, INT8_MAX)
 
@@ -61,7 +62,8 @@ def operand(L, name: str, scale, zp, axis_for_const: int | None = None):
             src = a.dtype
         per_axis = np.asarray(scale).size > 1 or np.asarray(zp).size > 1
         ax = axis_for_const if per_axis else None
-        q = L.b.quant(scale, np.asarray(zp).astype(a.dtype), a.dtype, axis=ax)
+        q = L.b.quant(scale, checked_cast(zp, a.dtype, f"zero point of '{name}'", L.error),
+                      a.dtype, axis=ax)
         return L.b.const_int8(name, a, a.dtype, q)
     if np.asarray(scale).size != 1 or np.asarray(zp).size != 1:
         raise L.error(f"activation '{name}' must be quantized per-tensor")
@@ -71,7 +73,8 @@ def operand(L, name: str, scale, zp, axis_for_const: int | None = None):
         if dt is None or np.dtype(dt) not in (np.int8, np.uint8):
             raise L.error(f"float graph input '{name}' feeds a QLinear op directly "
                           "(a QuantizeLinear is missing)")
-        return L.quantize_input(name, L.b.quant(scale, np.asarray(zp).astype(dt), dt), dt)
+        zp_dt = checked_cast(zp, dt, f"zero point of '{name}'", L.error)
+        return L.quantize_input(name, L.b.quant(scale, zp_dt, dt), dt)
     if isinstance(v, Int):
         if not ops.same_quant(v.t.quant, q):
             raise L.error(f"'{name}' is read with scale/zero point other than it was "

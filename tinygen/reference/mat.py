@@ -72,6 +72,9 @@ def pack_matrix(w: np.ndarray, bias: np.ndarray | None, w_zp: np.ndarray | None,
     quads, pairs = (k_len + 3) // 4, (per + 1) // 2
     wz = np.zeros(out_c, np.int64) if w_zp is None else np.asarray(w_zp, np.int64).reshape(-1)
     b = np.zeros(out_c, np.int64) if bias is None else np.asarray(bias, np.int64).reshape(-1)
+    # the record words below wrap to int32 on purpose (bit patterns); a bias must not
+    if b.size and (b.min() < -2**31 or b.max() > 2**31 - 1):
+        raise ValueError("bias outside int32 cannot be packed")
     chan = np.zeros((out_c, 3), np.int64)
     wz_rows = w - wz[:, None]
     scaled = prescaled_constants(wz_rows, b, rq)

@@ -421,11 +421,10 @@ def _render(c, vs: list[Verdict], flags: str, layers: LayerFigures | None = None
 
 
 def write_report(c, path: str, budget_ram: int | None, budget_flash: int | None,
-                 flags: str, layers: LayerFigures | None = None) -> list[str]:
-    """Write the report to `path`; returns the verdict lines (also in the report)."""
+                 flags: str, layers: LayerFigures | None = None, protect=()) -> list[str]:
+    """Write the report to `path` (whole or not at all, never over one of the input files
+    in `protect`); returns the verdict lines (also in the report)."""
+    from tinygen.codegen.output import write_file
     vs = verdicts(c, budget_ram, budget_flash, flags)
-    try:
-        Path(path).write_text(_render(c, vs, flags, layers), encoding="utf-8")
-    except OSError as exc:
-        raise TinygenError(f"cannot write {path}: {exc.strerror}") from None
+    write_file(path, _render(c, vs, flags, layers), protect=protect, what="report")
     return [v.line() for v in vs]

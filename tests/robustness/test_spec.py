@@ -1,0 +1,176 @@
+"""Models that break the operator spec are refused in one line; valid ones compile as before.
+
+Every case of make_spec_corpus.py breaks one rule (the rule and its source are named beside
+the case there) and must end like any bad input (test_bad_inputs.py): exit 2, one line
+`tinygen: error: FILE: node 'N': op OP: reason` naming the node, op and tensor, no
+traceback, no "internal error", no output folder. The valid models beside them (forms the
+spec allows, the corpus bases, the examples) must compile, and the spec-equivalent forms of
+one model must emit the same C.
+"""
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+import onnx
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import make_spec_corpus  # noqa: E402
+from test_bad_inputs import LINE, forked, tinygen  # noqa: E402
+
+from tinygen.compiler import BuildOptions, compile_model  # noqa: E402
+from tinygen.errors import TinygenError  # noqa: E402
+from tinygen.frontend.spec import OPSET_MAX, OPSET_MIN, RULES, checked_cast  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[2]
+CASES = {c.name: c for c in make_spec_corpus.cases()}
+VALID = make_spec_corpus.valid_models()
+EXAMPLES = sorted(p for p in (ROOT / "examples").glob("*/*.onnx")
+                  if not p.name.endswith("_float.onnx"))
+
+
+@pytest.fixture(scope="module")
+def results(tmp_path_factory):
+    """Run every case once through `emit`; {name: (case, path, out dir, process)}."""
+    import onnx.reference  # noqa: F401 - imported once, shared by the forked children
+
+    import tinygen.cli  # noqa: F401
+    import tinygen.codegen.emit  # noqa: F401
+    base = tmp_path_factory.mktemp("spec_corpus")
+    done = {}
+    for case, path in make_spec_corpus.write_corpus(base / "models"):
+        out = base / "out" / case.name / "tree"
+        out.parent.mkdir(parents=True)
+        done[case.name] = (case, path, out, forked("emit", str(path), "-o", str(out),
+                                                   *case.args))
+    return done
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_spec_violation_gives_one_line_naming_node_op_and_tensor(results, name):
+    case, path, out, r = results[name]
+    assert r.returncode == 2, (r.returncode, r.stderr)
+    assert r.stdout == ""
+    lines = r.stderr.splitlines()
+    assert len(lines) == 1, r.stderr
+    assert "Traceback" not in r.stderr and "internal error" not in lines[0], lines[0]
+    m = LINE.match(lines[0])
+    assert m, lines[0]
+    assert m["file"] == str(path), lines[0]
+    if case.node is not None:
+        assert m["node"] == case.node, lines[0]
+    if case.op is not None:
+        assert m["op"] == case.op, lines[0]
+    assert case.reason.lower() in m["reason"].lower(), lines[0]
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_spec_violation_leaves_no_output(results, name):
+    _, _, out, _ = results[name]
+    assert not out.exists()
+    assert list(out.parent.iterdir()) == []
+
+
+@pytest.mark.parametrize("name", ["qop_bias_int64_past_int32", "qop_zero_point_128_128",
+                                  "opset_99"])
+def test_real_subprocess_and_other_verbs_say_the_same(results, name, tmp_path):
+    case, path, _, r = results[name]
+    real = tinygen("emit", str(path), "-o", str(tmp_path / "tree"))
+    assert (real.returncode, real.stdout, real.stderr) == (r.returncode, r.stdout, r.stderr)
+    for verb in (["check", str(path), "--samples", "1"], ["plan", str(path)]):
+        other = forked(*verb)
+        assert (other.returncode, other.stderr) == (2, r.stderr), (verb, other.stderr)
+    j = forked("plan", str(path), "--json")
+    assert json.loads(j.stdout)["error"] == r.stderr.strip()[len("tinygen: error: "):]
+    assert not (tmp_path / "tree").exists()
+
+
+def test_bias_past_int32_is_refused_not_wrapped(results):
+    # 2^32 + 5 would wrap to 5 in int32: the line must say int64, and name the int32 rule
+    # (QLinearConv's B is tensor(int32) [onnx QLinearConv-10])
+    _, _, _, r = results["qop_bias_int64_past_int32"]
+    assert "int64" in r.stderr and "requires int32" in r.stderr
+
+
+def test_every_default_domain_op_with_a_rule_exists_from_the_lowest_opset():
+    # Source: onnx.defs (the ONNX operator schemas): each op spec.py has rules for is
+    # defined at OPSET_MIN, and the newest opset the installed onnx knows is accepted
+    for domain, op in RULES:
+        if domain == "":
+            assert onnx.defs.get_schema(op, OPSET_MIN, "").since_version <= OPSET_MIN, op
+    assert onnx.defs.get_schema("QuantizeLinear", OPSET_MAX, "") is not None
+
+
+def _tree(path: Path) -> dict[str, str]:
+    """The emitted files without the header line that names the source file and its hash."""
+    from tinygen.codegen.emit import render_tree
+    c = compile_model(str(path), BuildOptions())
+    return {name: "\n".join(line for line in text.splitlines()
+                            if "Generated by tinygen" not in line)
+            for name, text in render_tree(c, "").items()}
+
+
+@pytest.fixture(scope="module")
+def valid_paths(tmp_path_factory):
+    base = tmp_path_factory.mktemp("spec_valid")
+    paths = {}
+    for name, model in VALID.items():
+        paths[name] = base / f"{name}.onnx"
+        onnx.save(model, paths[name])
+    return paths
+
+
+@pytest.mark.parametrize("name", sorted(VALID))
+def test_valid_model_compiles(valid_paths, name):
+    compile_model(str(valid_paths[name]), BuildOptions())
+
+
+# Forms the spec gives the same meaning as the plain QDQ model: the same C.
+SAME_AS_QDQ = ["qdq_one_element_1d_scale", "qdq_scale_from_constant_node",
+               "qdq_ir3_initializers_listed", "qdq_opset13", "qdq_opset_max"]
+
+
+@pytest.mark.parametrize("name", SAME_AS_QDQ)
+def test_equivalent_form_emits_the_same_c(valid_paths, name):
+    assert _tree(valid_paths[name]) == _tree(valid_paths["qdq"])
+
+
+def test_float16_scales_where_allowed_emit_what_float32_scales_do(valid_paths):
+    # float16 -> float32 is exact: the same values in either type are the same model
+    assert _tree(valid_paths["qop_opset21_float16_scales"]) == _tree(
+        valid_paths["qop_opset21_float32_scales"])
+
+
+@pytest.mark.parametrize("name", ["contrib_qlinearadd", "contrib_qgemm", "conv_integer",
+                                  "qop_per_column_2d_scale", "qdq_default_zero_point",
+                                  "qop_opset21_float16_scales"])
+def test_valid_form_is_bit_exact(valid_paths, name):
+    r = forked("check", str(valid_paths[name]), "--samples", "3", "--json")
+    assert r.returncode == 0, r.stderr
+    result = json.loads(r.stdout)
+    assert result["bit_exact"] is True and result["samples"] == 3, result
+
+
+@pytest.mark.parametrize("path", EXAMPLES, ids=lambda p: p.name)
+def test_examples_still_compile(path):
+    compile_model(str(path), BuildOptions())
+
+
+def test_checked_cast_refuses_every_narrowing_that_changes_a_value():
+    def error(reason):
+        return TinygenError(reason)
+
+    assert checked_cast(np.array([1, -2], np.int64), np.int32, "b", error).dtype == np.int32
+    with pytest.raises(TinygenError, match="outside int32 range"):
+        checked_cast(np.array([2**32 + 5], np.int64), np.int32, "b", error)
+    with pytest.raises(TinygenError, match="not integers"):
+        checked_cast(np.array([1.5], np.float32), np.int32, "b", error)
+    with pytest.raises(TinygenError, match="outside uint8 range"):
+        checked_cast(np.array([-5], np.int8), np.uint8, "zp", error)
+    with pytest.raises(TinygenError, match="not exactly representable"):
+        checked_cast(np.array([0.1], np.float64), np.float32, "p", error)
+    exact = checked_cast(np.array([0.5, 2.0], np.float64), np.float32, "p", error)
+    assert exact.dtype == np.float32 and exact.tolist() == [0.5, 2.0]
