@@ -47,7 +47,8 @@ def fc_pack(p: FcParams) -> np.ndarray:
     if p.w_zp is not None:
         wm = wm - np.asarray(p.w_zp, dtype=np.int64)[:, None]
     b = np.zeros(p.out, np.int64) if p.bias is None else np.asarray(p.bias, np.int64)
-    return pack_matrix(wm, b - int(p.x_zp) * wm.sum(axis=1), None, p.rq)
+    folded = ((b - int(p.x_zp) * wm.sum(axis=1) + 2**31) % 2**32) - 2**31
+    return pack_matrix(wm, folded, None, p.rq, bound_bias=b)
 
 
 def with_fc_pack(p: FcParams, w: np.ndarray, bias: np.ndarray | None) -> FcParams:

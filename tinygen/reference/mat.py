@@ -55,7 +55,8 @@ def prescaled_constants(w: np.ndarray, bias: np.ndarray, rq: Requant | None):
 
 
 def pack_matrix(w: np.ndarray, bias: np.ndarray | None, w_zp: np.ndarray | None,
-                rq: Requant | None, groups: int = 1) -> np.ndarray:
+                rq: Requant | None, groups: int = 1,
+                bound_bias: np.ndarray | None = None) -> np.ndarray:
     """The pack of weight rows w [out_c][k_len] (rows of group g are g*out_c/groups on).
 
     Per group, one record per channel pair c0 = 2j, c1 = 2j + 1 (a missing last c1 is all
@@ -65,6 +66,8 @@ def pack_matrix(w: np.ndarray, bias: np.ndarray | None, w_zp: np.ndarray | None,
     TG_RQ_FAST (else zeros). Choose rq's form first (choose_form): its constants are copied.
     Prescaled (prescaled_constants, any fixed form): weights and bias of channel c times
     2^p_c and the constants mult, add, FIXED_R | PRESCALED, to apply with no pre-shift.
+    bound_bias: the bias that bounds the sums when bias is another one (tg_fc's folded
+    bias, already wrapped to int32); default bias.
     """
     w = np.asarray(w, dtype=np.int64)
     out_c, k_len = w.shape
@@ -77,10 +80,12 @@ def pack_matrix(w: np.ndarray, bias: np.ndarray | None, w_zp: np.ndarray | None,
         raise ValueError("bias outside int32 cannot be packed")
     chan = np.zeros((out_c, 3), np.int64)
     wz_rows = w - wz[:, None]
-    scaled = prescaled_constants(wz_rows, b, rq)
+    bb = b if bound_bias is None else np.asarray(bound_bias, np.int64).reshape(-1)
+    scaled = prescaled_constants(wz_rows, bb, rq)
     if scaled is not None:  # weights and bias times 2^p: one final shift for all channels
         p2 = np.array([1 << pc for pc, _, _ in scaled], dtype=np.int64)
-        w, wz, b = wz_rows * p2[:, None], np.zeros(out_c, np.int64), b * p2
+        w, wz = wz_rows * p2[:, None], np.zeros(out_c, np.int64)
+        b = ((b * p2 + 2**31) % 2**32) - 2**31  # the sum is exact modulo 2^32
         chan = np.array([(m, add, FIXED_R | PRESCALED) for _, m, add in scaled], np.int64)
     elif rq is not None and rq.form == FORM_FAST and rq.chan is not None:
         chan = np.asarray(rq.chan, dtype=np.int64).reshape(out_c, 3)
