@@ -93,12 +93,18 @@ static int32_t tg_conv_raw_offset(const tg_conv_params_t *p)
     return 4 * p->k_h;
 }
 
+#define TG_CONV_LONG_RUN 32  /* runs from this length on are the library's memcpy */
+
 /* n bytes from src to dst a word at a time (the raw patch of a few channels is a few short
  * runs: a library call per run would cost more than the copy). TG_OPAQUE keeps gcc from
  * turning the loops back into those calls. */
 static void tg_conv_copy(int8_t *dst, const int8_t *src, int32_t n)
 {
     uint32_t v;
+    if (n >= TG_CONV_LONG_RUN) {
+        memcpy(dst, src, (size_t)n);
+        return;
+    }
     for (; n >= 4; n -= 4, src += 4, dst += 4) {
         memcpy(&v, src, sizeof v);  /* one unaligned load and store on Armv7-M and hosts */
         TG_OPAQUE(v);
@@ -123,6 +129,13 @@ static void tg_conv_gather_pair(const int8_t *src, int32_t step, const int32_t *
     uint32_t v0, v1;
     for (ky = 0; ky < k_h; ++ky) {
         const int8_t *s0 = src + rows[ky];
+        if (rows[ky] >= 0 && row_len >= TG_CONV_LONG_RUN) {
+            memcpy(raw0, s0, (size_t)row_len);
+            memcpy(raw1, s0 + step, (size_t)row_len);
+            raw0 += row_len;
+            raw1 += row_len;
+            continue;
+        }
         for (n = row_len; n >= 4; n -= 4, s0 += 4, raw0 += 4, raw1 += 4) {
             if (rows[ky] < 0) {
                 v0 = v1 = pad;
