@@ -1,6 +1,8 @@
-/* tg_mat.h - the blocked int16 matrix core of tg_pwconv and tg_conv (private header).
+/* tg_mat.h - the blocked int16 matrix core of tg_pwconv, tg_conv and tg_fc (private header).
  *
- * Both kernels reduce an output pixel to dot products of a vector of k_len int8 values
+ * tg_fc (TG_MAT_ROW) takes one row against four channels per pass from the same pack
+ * (below, at the one-row routines). The two convolutions reduce an output pixel to dot
+ * products of a vector of k_len int8 values
  * (a pixel for the 1x1 conv, a receptive field for the general one), taken as x - in_zp,
  * with each output channel's weight row. Two pixels at a time are widened once into the
  * pair buffer (k_len rounded up to a group of four, zero past k_len): group g at xw + 8g,
@@ -29,7 +31,7 @@
  * registers hold the
  * block, a group costs two LDMs and eight SMLADs, a record's bias starts the sums and its
  * constants follow the weights, so one pointer walks the pack. Everything else runs
- * tg_mat_pairs_c, the plain statement of the same loop, which compilers vectorise. The
+ * tg_mat_pairs_c, the plain statement of the same loop (gcc -O3 does not vectorise it). The
  * routines are local to each file that includes this header.
  */
 #ifndef TG_MAT_H
@@ -220,21 +222,6 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
         const int16_t *xg = xw;
         const int32_t c = 2 * j;
         int32_t a00 = rec[0], a01 = rec[1], a10 = rec[2], a11 = rec[3];
-#if TG_MAT_LANES_LE
-        /* Little-endian: a group's four weight words are c0's four int16 lanes, then c1's,
-         * in the pair buffer's lane order: four dot products of contiguous int16 lanes,
-         * which compilers vectorise. */
-        for (g = 0; g < groups; ++g, xg += 8, wp += 4) {
-            int16_t wt[8];
-            memcpy(wt, wp, sizeof wt);
-            for (l = 0; l < 4; ++l) {
-                a00 += xg[l] * wt[l];
-                a01 += xg[l] * wt[4 + l];
-                a10 += xg[4 + l] * wt[l];
-                a11 += xg[4 + l] * wt[4 + l];
-            }
-        }
-#else
         for (g = 0; g < groups; ++g, xg += 8, wp += 4) {
             for (l = 0; l < 2; ++l) {  /* lane pair l of the group: c0's word l, c1's 2 + l */
                 const int32_t u = wp[l], v = wp[2 + l];
@@ -255,7 +242,6 @@ static void tg_mat_pairs_c(const tg_mat_group_t *grp, const int16_t *xw, int32_t
                 a11 += x1 * wv;
             }
         }
-#endif
         if (fast_form) {  /* the record's constants, inline: no per-output dispatch */
             const int32_t lo = grp->rq->act_min, hi = grp->rq->act_max;
             const int32_t *e = rec + 4 + 4 * groups;  /* mult, add, r of c0, then of c1 */
