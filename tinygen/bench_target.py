@@ -9,6 +9,8 @@ written to bench/target.md (and printed) has
     flash and code size;
   - per op kind over all models: instructions per MAC (per output element for MAC-less
     kinds), DSP vs portable on M4 and M7;
+  - single layers: instructions per MAC of one-layer models with the shapes the speed
+    goals name (1x1 conv, stem conv, fully connected; add per element);
   - requantization: instructions per output beyond the MAC loop, from single-layer 1x1
     convolutions that differ only in their channel counts (exact differences);
   - per model: instructions of each kernel call on each core.
@@ -250,6 +252,99 @@ def probe_model(path: Path, in_c: int, out_c: int, side: int = 8) -> None:
     onnx.save(helper.make_model(graph, opset_imports=[helper.make_opsetid("", 13)]), path)
 
 
+def layer_probe_model(path: Path, kind: str, in_c: int, out_c: int, side: int = 8, k: int = 1,
+                      stride: int = 1, pad: int = 0) -> None:
+    """A one-layer int8 model for the kernel probes (per-tensor, seeded weights): kind "conv"
+    (QLinearConv k x k on side x side pixels), "fc" (QLinearMatMul of one row) or "add"
+    (QLinearAdd of two side x side x in_c inputs)."""
+    import onnx
+    from onnx import TensorProto, helper, numpy_helper
+    rng = np.random.default_rng(in_c * 1000 + out_c + k)
+    init = []
+    for name, value, dt in (("xs", 0.02, np.float32), ("ws", 0.01, np.float32),
+                            ("ys", 0.05, np.float32), ("xz", -3, np.int8), ("wz", 0, np.int8),
+                            ("yz", 5, np.int8), ("x2s", 0.03, np.float32), ("x2z", 4, np.int8)):
+        init.append(numpy_helper.from_array(np.array(value, dtype=dt), name))
+    quant = [helper.make_node("QuantizeLinear", ["x", "xs", "xz"], ["xq"])]
+    deq = [helper.make_node("DequantizeLinear", ["yq", "ys", "yz"], ["y"])]
+    inputs = [helper.make_tensor_value_info("x", TensorProto.FLOAT, [1, in_c, side, side])]
+    if kind == "fc":
+        init.append(numpy_helper.from_array(
+            rng.integers(-127, 128, size=(in_c, out_c)).astype(np.int8), "w"))
+        node = helper.make_node("QLinearMatMul", ["xq", "xs", "xz", "w", "ws", "wz", "ys", "yz"],
+                                ["yq"])
+        inputs = [helper.make_tensor_value_info("x", TensorProto.FLOAT, [1, in_c])]
+        out_shape = [1, out_c]
+    elif kind == "add":
+        quant.append(helper.make_node("QuantizeLinear", ["x2", "x2s", "x2z"], ["x2q"]))
+        node = helper.make_node("QLinearAdd", ["xq", "xs", "xz", "x2q", "x2s", "x2z", "ys", "yz"],
+                                ["yq"], domain="com.microsoft")
+        inputs.append(helper.make_tensor_value_info("x2", TensorProto.FLOAT,
+                                                    [1, in_c, side, side]))
+        out_shape = [1, in_c, side, side]
+    else:
+        init += [numpy_helper.from_array(
+            rng.integers(-127, 128, size=(out_c, in_c, k, k)).astype(np.int8), "w"),
+            numpy_helper.from_array(rng.integers(-2000, 2000, size=out_c).astype(np.int32), "b")]
+        node = helper.make_node("QLinearConv", ["xq", "xs", "xz", "w", "ws", "wz", "ys", "yz",
+                                                "b"], ["yq"], kernel_shape=[k, k],
+                                strides=[stride, stride], pads=[pad] * 4)
+        o = (side + 2 * pad - k) // stride + 1
+        out_shape = [1, out_c, o, o]
+    graph = helper.make_graph(quant + [node] + deq, "kernel_probe", inputs,
+                              [helper.make_tensor_value_info("y", TensorProto.FLOAT, out_shape)],
+                              initializer=init)
+    onnx.save(helper.make_model(graph, opset_imports=[helper.make_opsetid("", 13),
+                                                      helper.make_opsetid("com.microsoft", 1)]),
+              path)
+
+
+# (label, kind, in_c, out_c, side, k, stride, pad): the shapes the speed goals name
+KERNEL_PROBES = (
+    ("1x1 conv 16->16, 16x16", "conv", 16, 16, 16, 1, 1, 0),
+    ("1x1 conv 16->96, 16x16", "conv", 16, 96, 16, 1, 1, 0),
+    ("1x1 conv 32->32, 16x16", "conv", 32, 32, 16, 1, 1, 0),
+    ("1x1 conv 96->24, 16x16", "conv", 96, 24, 16, 1, 1, 0),
+    ("stem 3x3 3->16 stride 2, 32x32", "conv", 3, 16, 32, 3, 2, 1),
+    ("stem 3x3 3->16 stride 1, 16x16", "conv", 3, 16, 16, 3, 1, 1),
+    ("stem 3x3 8->16 stride 1, 16x16", "conv", 8, 16, 16, 3, 1, 1),
+    ("fully connected 16->16", "fc", 16, 16, 0, 1, 1, 0),
+    ("fully connected 64->32", "fc", 64, 32, 0, 1, 1, 0),
+    ("fully connected 256->10", "fc", 256, 10, 0, 1, 1, 0),
+    ("add, 16x16x16", "add", 16, 16, 16, 1, 1, 0),
+)
+
+
+def kernel_probes(cpus: tuple[str, ...]) -> list[str]:
+    """Instructions per MAC (per output element for add) of one-layer models, the whole
+    kernel call (per-op hooks), on the DSP cores and portable."""
+    import tempfile
+    keys = [k_ for k_ in run_keys(cpus) if k_.split()[0] in PORTABLE_CPUS]
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="tinygen-probe-") as tmp:
+        for label, kind, in_c, out_c, side, k, stride, pad in KERNEL_PROBES:
+            path = Path(tmp) / "probe.onnx"
+            layer_probe_model(path, kind, in_c, out_c, side, k, stride, pad)
+            cells = []
+            for key in keys:
+                opt = "portable" if key.endswith(PORTABLE) else "auto"
+                c = compile_model(str(path), BuildOptions(kernels=opt))
+                fig = emulate_compiled(c, random_inputs(c.graph, 1), key.split()[0],
+                                       flags="bench")
+                if not fig["bit_exact"]:
+                    raise TinygenError(f"kernel probe {label!r} on {key} differs from the "
+                                       "reference")
+                main = max(fig["per_op"], key=lambda e: (e["macs"], e["instructions"]))
+                n = int(main["macs"]) or int(c.graph.tensors[c.graph.outputs[0].name].size)
+                cells.append(f"{int(main['instructions']) / n:.2f}")
+            unit = "element" if kind == "add" else "MAC"
+            rows.append(f"| {label} | {unit} | " + " | ".join(cells) + " |")
+    return (["One-layer models (int8, per-tensor, seeded weights, fast requantization, int8 "
+             "range clamp); the kernel call alone:", "",
+             "| layer | per | " + " | ".join(keys) + " |",
+             "| --- | --- |" + " --: |" * len(keys)] + rows)
+
+
 def requant_probe(cpus: tuple[str, ...], k: int = 16, ch: int = 32, side: int = 8) -> list[str]:
     """Instructions per output beyond the MAC loop of a 1x1 conv, measured exactly:
     with I(K, C) the instructions of a K -> C layer on P pixels, the cost of one more output
@@ -301,7 +396,7 @@ def model_table(m: ModelFigures, cpus: tuple[str, ...]) -> list[str]:
 
 
 def render_markdown(models: list[ModelFigures], cpus: tuple[str, ...],
-                    probe: list[str] | None = None) -> str:
+                    probe: list[str] | None = None, layers: list[str] | None = None) -> str:
     """The whole bench/target.md text."""
     lines = ["# tinygen on Cortex-M: executed instructions", "",
              "QEMU instruction counts (exact, not cycles; docs/target.md), arm-none-eabi-gcc -Os, "
@@ -317,6 +412,8 @@ def render_markdown(models: list[ModelFigures], cpus: tuple[str, ...],
     lines += sizes_table(models, cpus)
     lines += ["", "## Per op kind, all models", ""]
     lines += kind_table(models, cpus)
+    if layers:
+        lines += ["", "## Single layers", ""] + layers
     if probe:
         lines += ["", "## Requantization", ""] + probe
     lines += ["", "## Per kernel call", ""]
@@ -330,8 +427,10 @@ def bench_target(models: list[Path] | None = None, cpus: tuple[str, ...] = CPUS,
                  out: Path | None = None) -> str:
     """Emulate each model on each core, write the markdown to out (bench/target.md), return it."""
     paths = models if models else example_models(ROOT)
-    probe = requant_probe(cpus) if any(c in PORTABLE_CPUS for c in cpus) else None
-    text = render_markdown([measure_model(p, cpus) for p in paths], cpus, probe)
+    dsp = any(c in PORTABLE_CPUS for c in cpus)
+    probe = requant_probe(cpus) if dsp else None
+    layers = kernel_probes(cpus) if dsp else None
+    text = render_markdown([measure_model(p, cpus) for p in paths], cpus, probe, layers)
     out = out if out is not None else ROOT / "bench" / "target.md"
     out.parent.mkdir(parents=True, exist_ok=True)
     out.write_text(text)

@@ -61,6 +61,9 @@ def _conv_ref(fn):
 
 
 def _fc_ref(p, x, w, bias):
+    """With a pack, tg_fc's w and bias arguments are NULL; the reference takes p.w, p.bias."""
+    if p.pack is not None:
+        w, bias = p.w, p.bias
     return ref_fc.fc(x.reshape(p.rows, p.depth), w, bias, p)
 
 

@@ -20,6 +20,14 @@
 #define TG_INLINE static inline
 #endif
 
+/* An empty barrier on v: gcc and clang must not turn the short copy and fill loops of the
+ * kernels into memcpy/memset calls, which cost more than the few bytes they move. */
+#if defined(__GNUC__)
+#define TG_OPAQUE(v) __asm__("" : "+r"(v))
+#else
+#define TG_OPAQUE(v) ((void)0)
+#endif
+
 #if defined(__ARM_FEATURE_DSP) && defined(__GNUC__) && defined(__OPTIMIZE__) \
     && !TG_KERNELS_PORTABLE
 #define TG_DSP 1

@@ -93,6 +93,78 @@ static int32_t tg_conv_raw_offset(const tg_conv_params_t *p)
     return 4 * p->k_h;
 }
 
+#define TG_CONV_LONG_RUN 32  /* runs from this length on are the library's memcpy */
+
+/* n bytes from src to dst a word at a time (the raw patch of a few channels is a few short
+ * runs: a library call per run would cost more than the copy). TG_OPAQUE keeps gcc from
+ * turning the loops back into those calls. */
+static void tg_conv_copy(int8_t *dst, const int8_t *src, int32_t n)
+{
+    uint32_t v;
+    if (n >= TG_CONV_LONG_RUN) {
+        memcpy(dst, src, (size_t)n);
+        return;
+    }
+    for (; n >= 4; n -= 4, src += 4, dst += 4) {
+        memcpy(&v, src, sizeof v);  /* one unaligned load and store on Armv7-M and hosts */
+        TG_OPAQUE(v);
+        memcpy(dst, &v, sizeof v);
+    }
+    for (; n > 0; --n) {
+        int32_t b = *src++;
+        TG_OPAQUE(b);
+        *dst++ = (int8_t)b;
+    }
+}
+
+/* Two pixels' patches at once (both inside the image along x, one group, dil_w == 1):
+ * src + rows[ky] is tap row ky of pixel 0 (rows[ky] < 0: padding), pixel 1's is step bytes
+ * further; each tap row is row_len bytes of x, a word at a time. */
+static void tg_conv_gather_pair(const int8_t *src, int32_t step, const int32_t *rows,
+                                int32_t k_h, int32_t row_len, int32_t zp, int8_t *raw0,
+                                int8_t *raw1)
+{
+    const uint32_t pad = (uint32_t)(uint8_t)zp * 0x01010101u;
+    int32_t ky, n;
+    uint32_t v0, v1;
+    for (ky = 0; ky < k_h; ++ky) {
+        const int8_t *s0 = src + rows[ky];
+        if (rows[ky] >= 0 && row_len >= TG_CONV_LONG_RUN) {
+            memcpy(raw0, s0, (size_t)row_len);
+            memcpy(raw1, s0 + step, (size_t)row_len);
+            raw0 += row_len;
+            raw1 += row_len;
+            continue;
+        }
+        for (n = row_len; n >= 4; n -= 4, s0 += 4, raw0 += 4, raw1 += 4) {
+            if (rows[ky] < 0) {
+                v0 = v1 = pad;
+            } else {
+                memcpy(&v0, s0, sizeof v0);
+                memcpy(&v1, s0 + step, sizeof v1);
+            }
+            TG_OPAQUE(v0);
+            memcpy(raw0, &v0, sizeof v0);
+            memcpy(raw1, &v1, sizeof v1);
+        }
+        for (; n > 0; --n, ++s0) {
+            int32_t b0 = rows[ky] < 0 ? zp : s0[0], b1 = rows[ky] < 0 ? zp : s0[step];
+            TG_OPAQUE(b0);
+            *raw0++ = (int8_t)b0;
+            *raw1++ = (int8_t)b1;
+        }
+    }
+}
+
+/* n bytes of dst set to the padding value zp. */
+static void tg_conv_fill(int8_t *dst, int32_t zp, int32_t n)
+{
+    for (; n > 0; --n) {
+        TG_OPAQUE(zp);
+        *dst++ = (int8_t)zp;
+    }
+}
+
 /* The patch of output column ox, group g, into raw: tap (ky, kx), channel ci of the group
  * at ky * k_w * in_pg + kx * in_pg + ci; x + rows[ky] is the input row of tap row ky (-1:
  * padding); padding reads as in_zp. */
@@ -104,24 +176,36 @@ static void tg_conv_gather(const tg_conv_params_t *p, const int8_t *x, const int
     const int32_t base_x = ox * p->stride_w - p->pad_left;
     int32_t kx0, kx1, ky, kx;
     tg_tap_range(base_x, p->dil_w, p->k_w, p->in_w, &kx0, &kx1);
+    if (kx0 == 0 && kx1 == p->k_w && p->dil_w == 1 && in_pg == p->in_c) {
+        /* Inside the image along x: each tap row is one run of x, or all padding. */
+        const int8_t *col = x + base_x * p->in_c;
+        for (ky = 0; ky < p->k_h; ++ky, raw += row_len) {
+            if (rows[ky] < 0) {
+                tg_conv_fill(raw, p->in_zp, row_len);
+            } else {
+                tg_conv_copy(raw, col + rows[ky], row_len);
+            }
+        }
+        return;
+    }
     for (ky = 0; ky < p->k_h; ++ky, raw += row_len) {
         const int8_t *row;
         if (rows[ky] < 0 || kx0 == kx1) {
-            memset(raw, (int8_t)p->in_zp, (size_t)row_len);
+            tg_conv_fill(raw, p->in_zp, row_len);
             continue;
         }
         row = x + rows[ky] + g * in_pg;
-        memset(raw, (int8_t)p->in_zp, (size_t)(kx0 * in_pg));
+        tg_conv_fill(raw, p->in_zp, kx0 * in_pg);
         if (p->dil_w == 1 && in_pg == p->in_c) {  /* the valid taps are one run of x */
-            memcpy(raw + kx0 * in_pg, row + (base_x + kx0) * p->in_c,
-                   (size_t)((kx1 - kx0) * in_pg));
+            tg_conv_copy(raw + kx0 * in_pg, row + (base_x + kx0) * p->in_c,
+                         (kx1 - kx0) * in_pg);
         } else {
             for (kx = kx0; kx < kx1; ++kx) {
-                memcpy(raw + kx * in_pg, row + (base_x + kx * p->dil_w) * p->in_c,
-                       (size_t)in_pg);
+                tg_conv_copy(raw + kx * in_pg, row + (base_x + kx * p->dil_w) * p->in_c,
+                             in_pg);
             }
         }
-        memset(raw + kx1 * in_pg, (int8_t)p->in_zp, (size_t)((p->k_w - kx1) * in_pg));
+        tg_conv_fill(raw + kx1 * in_pg, p->in_zp, (p->k_w - kx1) * in_pg);
     }
 }
 
@@ -134,12 +218,20 @@ void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
     const int32_t x_row = p->in_w * p->in_c, y_row = p->out_w * p->out_c * e;
     const int32_t images = row0 == 0 && row1 == p->out_h ? p->n : 1;
     const int32_t group_words = ((out_pg + 1) >> 1) * tg_mat_record_words(k_len);
-    const int fast = tg_mat_fast(p->rq);
+    const int fast = p->rq != NULL ? tg_mat_mode(p->rq, p->pack, k_len) : 0;
     int32_t *rows = (int32_t *)scratch;
     int8_t *raw0 = (int8_t *)scratch + tg_conv_raw_offset(p), *raw1 = raw0 + raw_len;
     int16_t *xw = (int16_t *)(void *)(raw1 + raw_len);
+    const int32_t row_len = p->k_w * in_pg;
     tg_mat_group_t grp;
-    int32_t b, r, ky, ox, g;
+    int32_t b, r, ky, ox, g, ox_in0 = p->out_w, ox_in1 = 0;
+    if (p->groups == 1 && p->dil_w == 1) {
+        /* Output columns [ox_in0, ox_in1) read only inside the image along x. */
+        ox_in0 = (p->pad_left + p->stride_w - 1) / p->stride_w;
+        ox_in1 = p->in_w - p->k_w + p->pad_left < 0 ? 0
+                 : (p->in_w - p->k_w + p->pad_left) / p->stride_w + 1;
+        ox_in1 = ox_in1 < p->out_w ? ox_in1 : p->out_w;
+    }
     grp.rq = p->rq;
     grp.k_len = k_len;
     grp.nc = out_pg;
@@ -159,9 +251,15 @@ void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
                 int8_t *y0 = yr + ox * p->out_c * e;
                 for (g = 0; g < p->groups; ++g) {
                     int8_t *yg = y0 + g * out_pg * e;
-                    tg_conv_gather(p, x, rows, ox, g, raw0);
-                    if (two) {
-                        tg_conv_gather(p, x, rows, ox + 1, g, raw1);
+                    if (two && ox >= ox_in0 && ox + 1 < ox_in1) {
+                        tg_conv_gather_pair(x + (ox * p->stride_w - p->pad_left) * p->in_c,
+                                            p->stride_w * p->in_c, rows, p->k_h, row_len,
+                                            p->in_zp, raw0, raw1);
+                    } else {
+                        tg_conv_gather(p, x, rows, ox, g, raw0);
+                        if (two) {
+                            tg_conv_gather(p, x, rows, ox + 1, g, raw1);
+                        }
                     }
                     tg_mat_widen2(raw0, two ? raw1 : raw0, k_len, p->in_zp, xw);
                     grp.rec = p->pack + g * group_words;

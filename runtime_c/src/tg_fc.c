@@ -11,10 +11,15 @@
  * assembly with SXTAB16/SXTB16/SMLAD (four products per SMLAD pair); other cores, other
  * compilers and unoptimized builds (where gcc cannot give the assembly its registers) run
  * plain C. The helpers are private to this file, as in tg_conv.c.
+ * A constant weight comes as a pack instead (tg_fc.h): each row runs on the blocked matrix
+ * core (tg_mat.h: four output channels per pass, SMLAD assembly on DSP cores).
  */
 #include "tg_fc.h"
 
 #include <string.h>
+
+#define TG_MAT_ROW 1  /* the one-row routines of the matrix core */
+#include "tg_mat.h"
 
 #define TG_FC_DSP TG_DSP  /* tg_arm_dsp.h: off with --kernels portable */
 
@@ -153,6 +158,15 @@ void tg_fc(const tg_fc_params_t *p, const int8_t *x, const int8_t *w,
 {
     int32_t m;
     int32_t o0;
+    if (p->pack != NULL) {
+        const int32_t e = p->rq != NULL ? 1 : 4;  /* output element bytes */
+        (void)w, (void)bias;
+        for (m = 0; m < p->rows; ++m) {
+            tg_mat_row(p->pack, p->rq, x + m * p->depth, p->depth, p->out,
+                       (int8_t *)y + m * p->out * e);
+        }
+        return;
+    }
     for (m = 0; m < p->rows; ++m) {
         const int8_t *xr = x + m * p->depth;
         const int32_t yi = m * p->out;

@@ -23,7 +23,7 @@ void tg_pwconv(const tg_pwconv_params_t *p, const int8_t *x, void *y, void *scra
     const int32_t e = p->rq != NULL ? 1 : 4;  /* output element bytes */
     const int32_t x_row = p->in_w * p->in_c, y_row = p->out_w * p->out_c * e;
     const int32_t x_px = p->stride_w * p->in_c, y_px = p->out_c * e;
-    const int fast = tg_mat_fast(p->rq);
+    const int fast = p->rq != NULL ? tg_mat_mode(p->rq, p->pack, p->in_c) : 0;
     tg_mat_group_t grp;
     int16_t *xw = (int16_t *)scratch;
     int8_t *yb = (int8_t *)y;
@@ -39,8 +39,12 @@ void tg_pwconv(const tg_pwconv_params_t *p, const int8_t *x, void *y, void *scra
         const int32_t whole = row0 == 0 && row1 == p->out_h;
         const int32_t first = row0 * p->out_w;
         const int32_t end = whole ? p->n * p->out_h * p->out_w : row1 * p->out_w;
-        int32_t q;
-        for (q = first; q < end; q += 2) {
+        int32_t q = first;
+        if (tg_mat_run(&grp, x + q * p->in_c, p->in_c, p->in_zp, xw, yb + q * y_px, y_px,
+                       (end - first) >> 1, fast)) {
+            q += (end - first) & ~1;  /* the pairs ran in the assembly; a lone last pixel */
+        }
+        for (; q < end; q += 2) {
             const int32_t two = q + 1 < end;
             tg_pw_pixels(&grp, p->in_zp, x + q * p->in_c, two ? x + (q + 1) * p->in_c : NULL,
                          xw, yb + q * y_px, two ? yb + (q + 1) * y_px : NULL, fast);
@@ -54,7 +58,11 @@ void tg_pwconv(const tg_pwconv_params_t *p, const int8_t *x, void *y, void *scra
             const int32_t iy = r * p->stride_h;
             const int8_t *xr = xb + (p->x_ring ? iy % p->x_ring : iy) * x_row;
             int8_t *yr = ybb + (p->y_ring ? r % p->y_ring : r) * y_row;
-            for (ox = 0; ox < p->out_w; ox += 2) {
+            ox = 0;
+            if (tg_mat_run(&grp, xr, x_px, p->in_zp, xw, yr, y_px, p->out_w >> 1, fast)) {
+                ox = p->out_w & ~1;
+            }
+            for (; ox < p->out_w; ox += 2) {
                 const int32_t two = ox + 1 < p->out_w;
                 tg_pw_pixels(&grp, p->in_zp, xr + ox * x_px,
                              two ? xr + (ox + 1) * x_px : NULL, xw, yr + ox * y_px,

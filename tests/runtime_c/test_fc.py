@@ -21,7 +21,7 @@ from tests.runtime_c.kernel_lib import (
     run_qemu,
     to_int8_domain,
 )
-from tinygen.reference.fc import FcParams, fc, fc_accumulators, gather_weights
+from tinygen.reference.fc import FcParams, fc, fc_accumulators, gather_weights, with_fc_pack
 from tinygen.reference.requant import make_requant, mul_shift
 
 # tg_fc.h, field for field.
@@ -32,6 +32,7 @@ typedef struct {
     int32_t x_zp;
     const int32_t *w_zp;
     const tg_requant_t *rq;
+    const int32_t *pack;
 } tg_fc_params_t;
 void tg_fc(const tg_fc_params_t *p, const int8_t *x, const int8_t *w,
            const int32_t *bias, void *y);
@@ -49,9 +50,12 @@ def run_c_fc(x, w, bias, p: FcParams) -> np.ndarray:
     ffi, lib = kernel_lib(["tg_fc.c"], REQUANT_CDEF + FC_CDEF)
     m = Marshal(ffi)
     params = m.struct("tg_fc_params_t", **{f: int(getattr(p, f)) for f in SCALAR_FIELDS},
-                      w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq))
+                      w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq),
+                      pack=m.optional_array(p.pack, np.int32, "int32_t"))
     y, y_ptr = m.output((p.rows, p.out), np.int32 if p.rq is None else np.int8)
-    lib.tg_fc(params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
+    if p.pack is not None:  # tg_fc.h: with a pack, w and bias are NULL
+        w, bias = None, None
+    lib.tg_fc(params, m.array(x, np.int8, "int8_t"), m.optional_array(w, np.int8, "int8_t"),
               m.optional_array(bias, np.int32, "int32_t"), y_ptr)
     return y
 
@@ -66,29 +70,40 @@ def weight_buffer(rng, layout: str, depth: int, out: int) -> tuple[np.ndarray, i
     return buf.reshape(-1), 1, out + pitch_extra
 
 
-def random_requant(rng, out: int, mode: str):
-    """Per-column requant with scales log-uniform in [1e-6, 1]; None for raw int32."""
+def random_requant(rng, out: int, mode: str, narrow: bool = False):
+    """Per-column requant with scales log-uniform in [1e-6, 1] (narrow: [2^-12, 2^-6],
+    where a pack is prescaled); None for raw int32."""
     if mode == "int32":
         return None
     out_zp = pick_zero_point(rng)
     act_min = out_zp if rng.random() < 0.25 else -128  # sometimes a fused ReLU
-    return make_requant(10.0 ** rng.uniform(-6, 0, size=out), out_zp, act_min, 127, mode)
+    scales = 2.0 ** rng.uniform(-12, -6, size=out) if narrow else 10.0 ** rng.uniform(-6, 0,
+                                                                                       size=out)
+    return make_requant(scales, out_zp, act_min, 127, mode)
 
 
 def random_case(seed: int):
-    """One fc case; the seed cycles layout and requant mode so each pairing is covered."""
+    """One fc case; the seed cycles layout and requant mode so each pairing is covered.
+    Constant-layout ([out][depth]) cases with (seed // 4) even carry the pack tg_fc reads
+    instead of w and bias, half of them with prescaling scales."""
     rng = np.random.default_rng(seed)
     layout = LAYOUTS[seed % len(LAYOUTS)]
     mode = RQ_MODES[(seed // len(LAYOUTS)) % len(RQ_MODES)]
     rows, depth, out = int(rng.integers(1, 4)), int(rng.integers(1, 41)), int(rng.integers(1, 41))
-    w, stride_o, stride_k = weight_buffer(rng, layout, depth, out)
     w_zp = None
     if seed % 3 != 0:
         w_zp = np.array([pick_zero_point(rng) for _ in range(out)], dtype=np.int32)
+    packed = layout.startswith("out_depth") and (seed // 4) % 2 == 0
+    if packed and seed % 3:
+        depth = 4 * ((depth + 3) // 4)  # the assembly's case on M4: whole groups of four
+    w, stride_o, stride_k = weight_buffer(rng, layout, depth, out)
+    narrow = packed and (seed // 8) % 2 == 1
     p = FcParams(rows=rows, depth=depth, out=out, w_stride_o=stride_o, w_stride_k=stride_k,
-                 x_zp=pick_zero_point(rng), w_zp=w_zp, rq=random_requant(rng, out, mode))
+                 x_zp=pick_zero_point(rng), w_zp=w_zp, rq=random_requant(rng, out, mode, narrow))
     x = rng.integers(-128, 128, size=(rows, depth), dtype=np.int8)
     bias = None if seed % 5 == 0 else rng.integers(-5000, 5001, size=out, dtype=np.int32)
+    if packed:
+        with_fc_pack(p, w, bias)
     return p, x, w, bias
 
 
@@ -248,12 +263,18 @@ def fc_case_c(tag: str, p: FcParams, x, w, bias) -> tuple[str, str]:
     w_zp_def, w_zp_expr = c_optional_array(f"{tag}_w_zp", "int32_t", p.w_zp)
     bias_def, bias_expr = c_optional_array(f"{tag}_bias", "int32_t", bias)
     rq_def, rq_expr = c_requant(f"{tag}_rq", p.rq)
+    pack_def, pack_expr = c_optional_array(f"{tag}_pack", "int32_t", p.pack)
     fields = ", ".join(str(int(getattr(p, f))) for f in SCALAR_FIELDS)
-    defs = (c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_w", "int8_t", w) + bias_def
-            + w_zp_def + rq_def
-            + f"static const tg_fc_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}}};\n")
+    if p.pack is not None:  # tg_fc.h: the pack replaces w and bias (both NULL)
+        w_def, bias_def, bias_expr = "", "", "NULL"
+    else:
+        w_def = c_array(f"{tag}_w", "int8_t", w)
+    defs = (c_array(f"{tag}_x", "int8_t", x) + w_def + bias_def + w_zp_def + rq_def + pack_def
+            + f"static const tg_fc_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}, "
+              f"{pack_expr}}};\n")
     out_bytes = p.rows * p.out * (1 if p.rq is not None else 4)
-    call = (f"tg_fc(&{tag}_p, {tag}_x, {tag}_w, {bias_expr}, y); "
+    w_expr = "NULL" if p.pack is not None else f"{tag}_w"
+    call = (f"tg_fc(&{tag}_p, {tag}_x, {w_expr}, {bias_expr}, y); "
             f"tg_test_dump(\"{tag}\", y, {out_bytes});")
     return defs, call
 
@@ -275,7 +296,9 @@ def test_fc_on_cortex_m_matches_reference(core, tmp_path):
               + "\n    ".join(calls) + "\n    return 0;\n}\n")
     elf = build_cortex_m(["tg_fc.c"], main_c, core, tmp_path)
     # The M4 build must really take the SMLAD path, the M3 build must not.
-    assert ("smlad" in disassembly(elf)) == (core is CORTEX_M4)
+    dis = disassembly(elf)
+    assert ("smlad" in dis) == (core is CORTEX_M4)
+    assert ("<tg_mat_row_dsp>:" in dis) == (core is CORTEX_M4)  # packs on the matrix core
     dumps = run_qemu(elf, core)
     assert dumps.keys() == expected.keys()
     for tag, want in expected.items():

@@ -20,6 +20,7 @@ from tests.runtime_c.kernel_lib import (
     pick_zero_point,
     run_qemu,
 )
+from tinygen.reference.mat import PRESCALED
 from tinygen.reference.pwconv import (
     PwConvParams,
     access_steps,
@@ -48,8 +49,10 @@ SCALARS = ("n", "in_h", "in_w", "in_c", "out_h", "out_w", "out_c", "stride_h", "
            "in_zp")
 
 
-def random_case(seed: int):
-    rng = np.random.default_rng(seed)
+def random_case(seed: int, narrow: bool = False):
+    """A random layer; narrow: per-channel scales within 2^-12..2^-6, where the pack is
+    prescaled (one final shift for all channels, tinygen.reference.mat)."""
+    rng = np.random.default_rng(seed + (1000 if narrow else 0))
     mode = ("fixed", "float", "int32")[seed % 3]
     in_c = int(rng.choice([1, 3, 4, 5, 16, 17, 24, 33, 40, 70]))
     out_c = int(rng.integers(1, 21))
@@ -60,7 +63,9 @@ def random_case(seed: int):
     if mode != "int32":
         out_zp = pick_zero_point(rng)
         lo = out_zp if rng.random() < 0.3 else -128
-        rq = make_requant(10.0 ** rng.uniform(-6, -0.5, size=out_c), out_zp, lo, 127, mode)
+        scales = (2.0 ** rng.uniform(-12, -6, size=out_c) if narrow
+                  else 10.0 ** rng.uniform(-6, -0.5, size=out_c))
+        rq = make_requant(scales, out_zp, lo, 127, mode)
     w_zp = None if seed % 2 else rng.integers(-128, 128, size=out_c).astype(np.int32)
     p = PwConvParams(n=1 + seed % 2, in_h=in_h, in_w=in_w, in_c=in_c, out_h=out_h,
                      out_w=out_w, out_c=out_c, stride_h=sh, stride_w=sw,
@@ -214,13 +219,36 @@ def test_reference_matches_onnx_reference_convinteger(seed):
     np.testing.assert_array_equal(ours, np.moveaxis(onnx_y, 1, -1))
 
 
+def is_prescaled(p: PwConvParams) -> bool:
+    return bool(np.asarray(p.pack)[4 + 4 * ((p.in_c + 3) // 4) + 2] & PRESCALED)
+
+
+@pytest.mark.parametrize("seed", range(24))
+def test_prescaled_pack_matches_reference(seed):
+    p, x, w, bias = random_case(seed, narrow=True)
+    y = np.zeros((p.n, p.out_h, p.out_w, p.out_c), dtype=out_dtype(p))
+    c_call(p, np.ascontiguousarray(x), w, bias, y, 0, p.out_h)
+    np.testing.assert_array_equal(y, pwconv(x, w, bias, p))
+    if p.rq is not None and not p.rq.is_float:
+        assert is_prescaled(p)  # the bound fits: |bias| + 255*sum|w'| << 7 < 2^31 here
+
+
+def test_wide_scale_spread_is_not_prescaled():
+    # shifts 8 apart cannot share one final shift with prescales in [0, 7]
+    rq = make_requant(np.array([2.0 ** -7, 2.0 ** -15]), 0, -128, 127, "fixed")
+    p = PwConvParams(n=1, in_h=1, in_w=2, in_c=4, out_h=1, out_w=2, out_c=2, stride_h=1,
+                     stride_w=1, in_zp=0, rq=rq)
+    with_pack(p, np.ones((2, 4), np.int8), np.zeros(2, np.int32))
+    assert not is_prescaled(p)
+
+
 @pytest.mark.target
 @pytest.mark.skipif(not cortex_m_tools_available(), reason="needs arm-none-eabi-gcc and QEMU")
 @pytest.mark.parametrize("core", [CORTEX_M4, CORTEX_M3], ids=["cortex-m4-dsp", "cortex-m3"])
 def test_pwconv_on_cortex_m_matches_reference(core, tmp_path):
     defs, calls, expected = [], [], {}
-    for i in range(24):
-        p, x, w, bias = random_case(i)
+    cases = [random_case(i) for i in range(24)] + [random_case(i, True) for i in range(12)]
+    for i, (p, x, w, bias) in enumerate(cases):
         if p.rq is not None and p.rq.is_float and core is CORTEX_M3:
             continue
         tag = f"p{i}"
@@ -244,6 +272,7 @@ def test_pwconv_on_cortex_m_matches_reference(core, tmp_path):
     dis = disassembly(elf)
     assert ("smlad" in dis) == (core is CORTEX_M4)
     assert ("<tg_mat_dsp_long>:" in dis) == (core is CORTEX_M4)
+    assert ("<tg_mat_dsp_long_r>:" in dis) == (core is CORTEX_M4)
     dumps = run_qemu(elf, core)
     assert dumps.keys() == expected.keys()
     for tag, want in expected.items():

@@ -231,6 +231,7 @@ def config_needs(c: Compiled) -> list[str]:
 
 # Private headers a kernel family's C file includes besides its own header.
 PRIVATE_HEADERS = {"conv": ("tg_mat.h", "tg_window.h"), "pwconv": ("tg_mat.h",),
+                   "fc": ("tg_mat.h",),
                    "pool": ("tg_window.h",)}
 
 

@@ -15,7 +15,7 @@ from tinygen.errors import TinygenError
 from tinygen.ir import Graph, Op, Tensor, storage_perm
 from tinygen.passes.layout import storage_data
 from tinygen.reference.conv import ConvParams, conv_pack, with_conv_pack
-from tinygen.reference.fc import FcParams
+from tinygen.reference.fc import FcParams, fc_pack, with_fc_pack
 from tinygen.reference.pwconv import PwConvParams, pack_weights, with_pack
 from tinygen.reference.requant import Requant, choose_form, make_requant, quantize_multiplier
 
@@ -97,6 +97,9 @@ def _fc(graph: Graph, op: Op, mode: str) -> KernelCall:
     rq = None if y.dtype == "int32" else channel_requant(x, w, y, out, op.attrs["act"], mode)
     p = FcParams(rows=rows, depth=depth, out=out, w_stride_o=so, w_stride_k=sk,
                  x_zp=x.quant.scalar_zp(), w_zp=_w_zp(w, out), rq=rq)
+    if w.is_const and batch == 1:  # tg_fc reads a constant weight from its pack alone
+        with_fc_pack(p, storage_data(w), b.data if b is not None else None)
+        return KernelCall("tg_fc", "fc", p, [x.name, "", "", y.name])
     step = (rows * depth, out * depth, 0, rows * out) if batch > 1 else ()
     return KernelCall("tg_fc", "fc", p, [x.name, w.name, b.name if b else "", y.name],
                       batch, step)
@@ -294,6 +297,8 @@ def choose_requant_forms(graph: Graph) -> Graph:
                 call.params.pack = pack_weights(call.params)
             elif call.func == "tg_conv":
                 call.params.pack = conv_pack(call.params)
+            elif call.func == "tg_fc" and call.params.pack is not None:
+                call.params.pack = fc_pack(call.params)
     return graph
 
 

@@ -6,10 +6,11 @@ a constant [out][depth] weight (strides depth, 1) and a run-time [depth][out] ri
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
+from tinygen.reference.mat import pack_matrix
 from tinygen.reference.requant import Requant, requantize
 
 
@@ -18,6 +19,8 @@ class FcParams:
     """Mirror of tg_fc_params_t: same field names, int8-domain zero points.
 
     w_zp is None (all zero) or one int per output column; rq None means raw int32 output.
+    pack: constant weights only, what the C reads instead of w and bias (fc_pack); w and
+    bias stay Python-side (not in the C struct) to rebuild it.
     """
 
     rows: int
@@ -28,6 +31,31 @@ class FcParams:
     x_zp: int = 0
     w_zp: np.ndarray | None = None
     rq: Requant | None = None
+    pack: np.ndarray | None = None
+    w: np.ndarray | None = field(default=None, compare=False, repr=False)
+    bias: np.ndarray | None = field(default=None, compare=False, repr=False)
+
+
+def fc_pack(p: FcParams) -> np.ndarray:
+    """The blocked matrix core's pack (tg_mat.h, k_len = depth) of a constant weight.
+
+    The input zero point is folded into the bias, bias - x_zp * sum_k (w - w_zp), so the C
+    widens x without an offset: sum (x - x_zp) w' = sum x w' - x_zp sum w'. The sum is the
+    same integer; the C adds its terms modulo 2^32, where the folded bias may wrap.
+    """
+    wm = gather_weights(p.w, p).astype(np.int64)
+    if p.w_zp is not None:
+        wm = wm - np.asarray(p.w_zp, dtype=np.int64)[:, None]
+    b = np.zeros(p.out, np.int64) if p.bias is None else np.asarray(p.bias, np.int64)
+    folded = ((b - int(p.x_zp) * wm.sum(axis=1) + 2**31) % 2**32) - 2**31
+    return pack_matrix(wm, folded, None, p.rq, bound_bias=b)
+
+
+def with_fc_pack(p: FcParams, w: np.ndarray, bias: np.ndarray | None) -> FcParams:
+    """p with w, bias and the pack built from them (constant [out][depth] weights)."""
+    p.w, p.bias = np.asarray(w), None if bias is None else np.asarray(bias)
+    p.pack = fc_pack(p)
+    return p
 
 
 def gather_weights(w: np.ndarray, p: FcParams) -> np.ndarray:
