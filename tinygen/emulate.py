@@ -308,11 +308,14 @@ def _run(elf: Path, board: target.Board, timeout: float,
          tools: Toolchain) -> target.FirmwareReport:
     result = target.run_elf(elf, board, timeout=timeout, tools=tools)
     report = target.parse_report(result.stdout)
-    if board.ram_bytes and (report.fault or any(s.stack_overflow for s in report.samples)):
+    lockup = result.status != 0 and "Lockup" in result.stderr
+    if board.ram_bytes and (report.fault or lockup
+                            or any(s.stack_overflow for s in report.samples)):
         # The stack is all the RAM the model left, and its bottom is the end of RAM: an
-        # overflow shows as a fault there, or as clobbered paint.
+        # overflow shows as a fault there, as clobbered paint, or (Armv6-M, when the
+        # fault's own exception frame cannot be stacked) as QEMU's lockup exit.
         raise _DoesNotFit(f"the stack left in {board.ram_bytes} bytes of RAM overflowed "
-                          f"(fault: {report.fault or 'none'})")
+                          f"(fault: {report.fault or ('lockup' if lockup else 'none')})")
     target.check_report(report, result, board)
     return report
 

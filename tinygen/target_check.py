@@ -70,7 +70,9 @@ def emulate_compiled(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
                                                    row.get("instructions_per_sample", [])],
                        "macs": call["macs"]})
     counts = [int(v) for v in fig["instructions_per_sample"]]
-    return {"cpu": cpu, "bit_exact": exact, "flash_bytes": fig["flash_bytes"],
+    note = f"; {fig['board_reason']}" if fig.get("board_reason") else ""
+    return {"cpu": cpu, "board": fig["board"], "board_note": note,
+            "bit_exact": exact, "flash_bytes": fig["flash_bytes"],
             "ram_bytes": fig["ram_bytes"], "stack_bytes": fig["stack_bytes"],
             "instructions": fig["instructions"], "instructions_per_sample": counts,
             "instructions_min": min(counts), "instructions_max": max(counts),
@@ -79,7 +81,7 @@ def emulate_compiled(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
             "float_instructions": fig.get("float_instructions", [])}
 
 
-CPUS_WITHOUT_FPU = ("cortex-m3",)
+CPUS_WITHOUT_FPU = ("cortex-m0", "cortex-m0plus", "cortex-m3", "rv32imc", "rv32imac")
 
 
 def emulate_model(path: str, cpu: str, opts: BuildOptions, samples: int = 4,

@@ -420,9 +420,36 @@ def forbidden_symbols(elf: Path, *, allow_float: bool, tools: Toolchain | None =
     bad = [n for n in names if n in HEAP_SYMBOLS]
     if not allow_float:
         bad += [n for n in names if FLOAT_SYMBOL_RE.match(n)]
-        if board is not None:
-            bad += [n for n in names if n in board.long_multiply_helpers]
+        if board is not None and board.long_multiply_helpers:
+            bad += long_multiply_calls(elf, board.long_multiply_helpers, tools)
     return sorted(set(bad))
+
+
+def _calls(elf: Path, tools: Toolchain | None) -> list[tuple[str, str]]:
+    """(calling function, called symbol) of every direct call (bl/jal) in the image."""
+    tools = tools or find_toolchain()
+    out = subprocess.run([tools.objdump, "-d", "--no-show-raw-insn", str(elf)],
+                         capture_output=True, text=True, check=True).stdout
+    calls, function = [], "?"
+    for line in out.splitlines():
+        head = re.match(r"^[0-9a-f]+ <(.+)>:$", line)
+        if head:
+            function = head.group(1)
+            continue
+        call = re.match(r"^\s+[0-9a-f]+:\s+(?:bl|blx|jal|call|tail)\s+.*<([^>+]+)>", line)
+        if call:
+            calls.append((function, call.group(1)))
+    return calls
+
+
+def long_multiply_calls(elf: Path, helpers: frozenset[str],
+                        tools: Toolchain | None = None) -> list[str]:
+    """'helper (from function)' for each call of a 64-bit multiply helper from the image's
+    own code. The C library's 64-bit division helper multiplies internally (libgcc's
+    __gnu_ldivmod_helper calls __aeabi_lmul); calls between library helpers ("__" names)
+    are its business, not the model's."""
+    return [f"{callee} (from {caller})" for caller, callee in _calls(elf, tools)
+            if callee in helpers and not caller.startswith("__")]
 
 
 # FPU data-processing instructions (moves, loads and stores of FP registers are left
