@@ -291,7 +291,8 @@ def cmd_emulate(args) -> int:
     if args.json:
         print(json.dumps(info))
     else:
-        _show(f"{args.model} on {info['cpu']} ({info['board']}{info['board_note']}): "
+        why = f"; {info['board_reason']}" if info["board_reason"] else ""
+        _show(f"{args.model} on {info['cpu']} ({info['board']}{why}): "
               f"bit_exact={info['bit_exact']}, flash "
              f"{info['flash_bytes']} B, RAM {info['ram_bytes']} B, stack {info['stack_bytes']} "
              f"B, {info['instructions']} instructions for {info['macs']} MACs (all "

@@ -70,8 +70,7 @@ def emulate_compiled(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
                                                    row.get("instructions_per_sample", [])],
                        "macs": call["macs"]})
     counts = [int(v) for v in fig["instructions_per_sample"]]
-    note = f"; {fig['board_reason']}" if fig.get("board_reason") else ""
-    return {"cpu": cpu, "board": fig["board"], "board_note": note,
+    return {"cpu": cpu, "board": fig["board"], "board_reason": fig["board_reason"],
             "bit_exact": exact, "flash_bytes": fig["flash_bytes"],
             "ram_bytes": fig["ram_bytes"], "stack_bytes": fig["stack_bytes"],
             "instructions": fig["instructions"], "instructions_per_sample": counts,
