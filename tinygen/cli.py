@@ -18,7 +18,7 @@ from tinygen.progress import for_cli
 
 # The cores `emulate` and `report --cpu` run on (tinygen/harness/target.py BOARDS).
 TARGET_CPUS = ["cortex-m0", "cortex-m0plus", "cortex-m3", "cortex-m4", "cortex-m7",
-               "cortex-m33", "rv32imc", "rv32imac"]
+               "cortex-m33", "cortex-m55", "rv32imc", "rv32imac"]
 
 SIZE_RE = re.compile(r"^(0x[0-9a-fA-F]+|\d+)([kKmM]?)$")
 

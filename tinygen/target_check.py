@@ -89,7 +89,7 @@ def emulate_model(path: str, cpu: str, opts: BuildOptions, samples: int = 4,
         # float mode's exact-rounding guarantees rest on IEEE single precision hardware
         # (and an exact fused multiply-add); software float would not keep them
         raise TinygenError(f"{cpu} has no FPU: float requantization is for cores with one "
-                           "(cortex-m4/m7/m33); use --requant fixed", file=path)
+                           "(cortex-m4/m7/m33/m55); use --requant fixed", file=path)
     c = compile_model(path, opts)
     data = load_inputs(c.graph, inputs) if inputs else random_inputs(c.graph, samples)
     if not data:

@@ -16,7 +16,8 @@ from tinygen.target_check import CPUS_WITHOUT_FPU
 pytestmark = pytest.mark.target
 ROOT = Path(__file__).resolve().parents[2]
 MODELS = sorted(p for p in (ROOT / "examples").glob("*/*.onnx") if not p.stem.endswith("_float"))
-CPUS = ("cortex-m0", "cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33", "rv32imc")
+CPUS = ("cortex-m0", "cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33", "cortex-m55",
+        "rv32imc")
 # Cores with the same instruction set as one above (M0+ = M0's Armv6-M, rv32imac = rv32imc
 # plus atomics, no compressed-instruction change): one model each.
 SAME_ISA_CPUS = ("cortex-m0plus", "rv32imac")

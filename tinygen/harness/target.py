@@ -10,6 +10,7 @@ from __future__ import annotations
 import re
 import subprocess
 from dataclasses import dataclass, field
+from fractions import Fraction
 from pathlib import Path
 
 from tinygen.errors import TinygenError
@@ -51,8 +52,22 @@ class Board:
     larger: str = ""         # key of LARGER_BOARDS that runs the same code with more RAM
 
     @property
+    def tick(self) -> Fraction:
+        """The fine counter's period in ns (31.25 for the AN547's 32 MHz counter)."""
+        return Fraction(1_000_000_000, self.timer_hz)
+
+    @property
     def tick_ns(self) -> int:
-        return 1_000_000_000 // self.timer_hz
+        """The period's numerator; the firmware divides by 2^tick_log2_den (a power of two)."""
+        return self.tick.numerator
+
+    @property
+    def tick_log2_den(self) -> int:
+        den = self.tick.denominator
+        if den & (den - 1):
+            raise TinygenError(f"{self.machine}: timer period {self.tick} ns has a denominator "
+                               "that is not a power of two")
+        return den.bit_length() - 1
 
     @property
     def hard_float(self) -> bool:
@@ -99,6 +114,9 @@ BOARDS: dict[str, Board] = {
     "cortex-m33": Board("cortex-m33", "mps2-an505", ("-mcpu=cortex-m33", "-mthumb",
                         "-mfpu=fpv5-sp-d16", "-mfloat-abi=hard"), "mps2_an505.ld",
                         "TG_FW_BOARD_AN505", 20_000_000),
+    # Armv8.1-M with MVE (Helium); the SSE-300's system counter runs at 32 MHz.
+    "cortex-m55": Board("cortex-m55", "mps3-an547", ("-mcpu=cortex-m55", "-mthumb",
+                        "-mfloat-abi=hard"), "mps3_an547.ld", "TG_FW_BOARD_AN547", 32_000_000),
     # minstret under -icount counts virtual nanoseconds: a 1 GHz "timer".
     "rv32imc": Board("rv32imc", "virt", _RV_FLAGS["rv32imc"], "tg_fw_rv_virt.ld",
                      "TG_FW_BOARD_RV_VIRT", 1_000_000_000, arch="riscv"),
@@ -133,6 +151,7 @@ def larger_board(board: Board) -> Board | None:
 def firmware_defines(board: Board) -> list[str]:
     """-D flags every firmware source needs (board addresses, counter scaling)."""
     return [f"-D{board.board_define}", f"-DTG_FW_TICK_NS={board.tick_ns}u",
+            f"-DTG_FW_TICK_LOG2_DEN={board.tick_log2_den}",
             f"-DTG_FW_ICOUNT_SHIFT={ICOUNT_SHIFT}"]
 
 

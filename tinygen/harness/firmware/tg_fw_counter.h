@@ -14,6 +14,8 @@
  *   RISC-V: the minstret/minstreth CSRs, which QEMU derives from virtual time in ns under
  *     -icount (so a "tick" is 1 ns); both halves are read around the low word, and
  *     tg_fw_elapsed() picks the high word that belongs to it.
+ *   AN547 (Cortex-M55): the SSE-300 system counter, 64 bits at 32 MHz (31.25 ns), read
+ *     the same way as minstret.
  * Build with -DTG_FW_TICK_NS=<fine tick in ns> -DTG_FW_ICOUNT_SHIFT=<S> (target.py does).
  */
 #ifndef TG_FW_COUNTER_H
@@ -24,28 +26,84 @@
 #if !defined(TG_FW_TICK_NS) || !defined(TG_FW_ICOUNT_SHIFT)
 #error "build with -DTG_FW_TICK_NS=<timer period, ns> -DTG_FW_ICOUNT_SHIFT=<qemu -icount shift>"
 #endif
-#if (TG_FW_TICK_NS * 2) >= (1 << TG_FW_ICOUNT_SHIFT)
+/* The tick is TG_FW_TICK_NS / 2^TG_FW_TICK_LOG2_DEN ns (31.25 = 125 / 4 on the AN547). */
+#ifndef TG_FW_TICK_LOG2_DEN
+#define TG_FW_TICK_LOG2_DEN 0
+#endif
+#define TG_FW_TO_INSTR_SHIFT (TG_FW_ICOUNT_SHIFT + TG_FW_TICK_LOG2_DEN)
+#if (TG_FW_TICK_NS * 2) >= (1 << TG_FW_TO_INSTR_SHIFT)
 #error "TG_FW_ICOUNT_SHIFT too small: a timer tick must be under half an instruction's time"
 #endif
 
-/* ticks * TG_FW_TICK_NS / 2^TG_FW_ICOUNT_SHIFT, rounded, with 32-bit multiplies only
- * (Armv6-M has no long multiply; a 64-bit product would call a library helper). */
+/* ticks * tick / 2^TG_FW_ICOUNT_SHIFT, rounded, with 32-bit multiplies only (Armv6-M has
+ * no long multiply; a 64-bit product would call a library helper). */
 static inline uint64_t tg_fw_ticks_to_instructions(uint64_t ticks)
 {
     const uint32_t lo = (uint32_t)ticks;
     const uint64_t hi_part = (uint64_t)((uint32_t)(ticks >> 32) * (uint32_t)TG_FW_TICK_NS) << 32;
     const uint64_t lo_part = ((uint64_t)((lo >> 16) * (uint32_t)TG_FW_TICK_NS) << 16)
                              + (uint64_t)((lo & 0xFFFFu) * (uint32_t)TG_FW_TICK_NS);
-    return (hi_part + lo_part + (1u << (TG_FW_ICOUNT_SHIFT - 1))) >> TG_FW_ICOUNT_SHIFT;
+    return (hi_part + lo_part + (1u << (TG_FW_TO_INSTR_SHIFT - 1))) >> TG_FW_TO_INSTR_SHIFT;
 }
 
-#if defined(__riscv)
+#if defined(__riscv) || defined(TG_FW_BOARD_AN547)
+/* One 64-bit counter, read as high, low, high word. */
 
 typedef struct {
     uint32_t hi_before;
     uint32_t lo;
     uint32_t hi_after;
 } tg_fw_stamp_t;
+
+#if defined(TG_FW_BOARD_AN547)
+/* SSE-300 system counter (secure alias): CNTCR at +0 (bit 0 enables), CNTCV at +8/+12. */
+#define TG_FW_SYSCNT_BASE 0x58100000u
+
+static inline void tg_fw_counter_start(void)
+{
+    *(volatile uint32_t *)TG_FW_SYSCNT_BASE = 1u;
+}
+
+/* After the low-word read in tg_fw_open come exactly four instructions (ldr, str x3);
+ * before the one in tg_fw_close exactly three (movw, movt, ldr). */
+#define TG_FW_SYSCNT_ASM \
+    "movw %[b], #0x0008\n\t" \
+    "movt %[b], #0x5810\n\t" \
+    "ldr %[hi0], [%[b], #4]\n\t" \
+    "ldr %[lo], [%[b]]\n\t" \
+    "ldr %[hi1], [%[b], #4]\n\t"
+
+static inline __attribute__((always_inline)) void tg_fw_open(tg_fw_stamp_t *out)
+{
+    uint32_t b;
+    uint32_t hi0;
+    uint32_t lo;
+    uint32_t hi1;
+    __asm__ volatile(TG_FW_SYSCNT_ASM
+                     "str %[hi0], [%[out]]\n\t"
+                     "str %[lo], [%[out], #4]\n\t"
+                     "str %[hi1], [%[out], #8]"
+                     : [b] "=&r"(b), [hi0] "=&r"(hi0), [lo] "=&r"(lo), [hi1] "=&r"(hi1)
+                     : [out] "r"(out)
+                     : "memory");
+}
+
+static inline __attribute__((always_inline)) void tg_fw_close(tg_fw_stamp_t *out)
+{
+    uint32_t b;
+    uint32_t hi0;
+    uint32_t lo;
+    uint32_t hi1;
+    __asm__ volatile(TG_FW_SYSCNT_ASM
+                     : [b] "=&r"(b), [hi0] "=&r"(hi0), [lo] "=&r"(lo), [hi1] "=&r"(hi1)
+                     :
+                     : "memory");
+    out->hi_before = hi0;
+    out->lo = lo;
+    out->hi_after = hi1;
+}
+
+#else /* RISC-V */
 
 static inline void tg_fw_counter_start(void)
 {
@@ -89,6 +147,8 @@ static inline __attribute__((always_inline)) void tg_fw_close(tg_fw_stamp_t *out
     out->hi_after = hi1;
 }
 
+#endif /* AN547 / RISC-V */
+
 /* The 64-bit reading of a stamp: when the high word changed between its two reads, the
  * carry came before the low read if the low word is small (it had just wrapped). */
 static inline uint64_t tg_fw_stamp_value(const tg_fw_stamp_t *s)
@@ -106,7 +166,7 @@ static inline uint64_t tg_fw_elapsed(const tg_fw_stamp_t *from, const tg_fw_stam
     return tg_fw_ticks_to_instructions(ns);
 }
 
-#else /* Arm */
+#else /* Arm, 32-bit timers */
 
 typedef struct {
     uint32_t fine;

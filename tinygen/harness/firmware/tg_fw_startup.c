@@ -50,7 +50,7 @@ static void tg_fw_enable_fpu(void)
 
 static void tg_fw_limit_stack(void)
 {
-#if defined(__ARM_ARCH_8M_MAIN__)
+#if defined(__ARM_ARCH_8M_MAIN__) || defined(__ARM_ARCH_8_1M_MAIN__)
     /* Armv8-M: overflowing the stack region faults instead of corrupting memory. */
     __asm__ volatile("msr msplim, %0" : : "r"(tg_fw_stack_bottom));
 #endif
