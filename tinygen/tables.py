@@ -16,7 +16,8 @@ from tinygen.codegen.emit import render_tree
 from tinygen.compiler import BuildOptions, compile_model, summary
 
 ROOT = Path(__file__).resolve().parent.parent
-CPUS = ("cortex-m0", "cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33", "rv32imc")
+CPUS = ("cortex-m0", "cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33", "cortex-m55",
+        "rv32imc")
 
 
 def example_models() -> list[Path]:
