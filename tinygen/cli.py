@@ -129,7 +129,7 @@ def make_parser() -> argparse.ArgumentParser:
     pl.add_argument("model")
     pl.add_argument("--svg", metavar="FILE")
     add_build_flags(pl)
-    em = sub.add_parser("emulate", help="build for Cortex-M and run under QEMU")
+    em = sub.add_parser("emulate", help="build for Cortex-M or RISC-V and run under QEMU")
     em.add_argument("model")
     em.add_argument("--cpu", required=True, choices=TARGET_CPUS)
     em.add_argument("--inputs", metavar="FILE.npz")
