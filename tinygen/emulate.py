@@ -293,9 +293,10 @@ def _stack_that_fits(b: _Build, objects: list[Path], elf: Path, mailbox: int) ->
         target.link(objects, elf, b.board, opt=b.opt, stack_bytes=0, mailbox_bytes=mailbox,
                     tools=b.tools)
     except TinygenError as exc:
-        over = re.search(r"region .RAM. overflowed by (\d+) bytes", exc.reason)
-        if over:
-            raise _DoesNotFit(f"RAM overflowed by {over.group(1)} bytes with no stack") from None
+        over = re.search(r"region .(RAM|CODE). overflowed by (\d+) bytes", exc.reason)
+        if over:   # CODE: the micro:bit's 256 KiB of flash
+            raise _DoesNotFit(f"{over.group(1)} overflowed by {over.group(2)} bytes"
+                              + (" with no stack" if over.group(1) == "RAM" else "")) from None
         raise
     used = sum(size for name, size, flags in target.section_table(elf, b.tools)
                if "ALLOC" in flags and "READONLY" not in flags)
