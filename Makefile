@@ -22,16 +22,19 @@ demo: $(VENV)/.installed
 lint: $(VENV)/.installed
 	$(VENV)/bin/ruff check tinygen tests examples
 
-# The Arm cross toolchain and QEMU come from Debian's packages (target tests need them), and
-# headless Chromium for the report's browser test.
+# The Arm and RISC-V cross toolchains (with newlib / picolibc) and QEMU come from Debian's
+# packages (target tests need them), and headless Chromium for the report's browser test.
 toolchain:
 	@if ! command -v arm-none-eabi-gcc >/dev/null || ! command -v qemu-system-arm >/dev/null \
+	    || ! command -v riscv64-unknown-elf-gcc >/dev/null \
+	    || ! command -v qemu-system-riscv32 >/dev/null \
 	    || ! command -v clang >/dev/null || ! command -v chromium >/dev/null; then \
 	  if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null; then \
 	    apt-get update -q && DEBIAN_FRONTEND=noninteractive apt-get install -y -q \
-	      gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang chromium; \
+	      gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm \
+	      gcc-riscv64-unknown-elf picolibc-riscv64-unknown-elf qemu-system-misc clang chromium; \
 	  else \
-	    echo "note: target and browser tests will skip: install gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm clang chromium"; \
+	    echo "note: target and browser tests will skip: install gcc-arm-none-eabi libnewlib-arm-none-eabi qemu-system-arm gcc-riscv64-unknown-elf picolibc-riscv64-unknown-elf qemu-system-misc clang chromium"; \
 	  fi; \
 	fi
 

@@ -28,7 +28,11 @@ SOURCES = ("pyproject.toml", "setup.py", "README.md", "tinygen", "runtime_c")
 PACKAGE_DATA = ("tinygen/runtime_c/include/tg_requant.h", "tinygen/runtime_c/src/tg_conv.c",
                 "tinygen/codegen/templates/model.h.j2",
                 "tinygen/harness/firmware/tg_fw_startup.c",
-                "tinygen/harness/firmware/mps2_an386.ld")
+                "tinygen/harness/firmware/mps2_an386.ld",
+                "tinygen/harness/firmware/tg_fw_rv_startup.c",
+                "tinygen/harness/firmware/tg_fw_rv_virt.ld",
+                "tinygen/harness/firmware/microbit.ld",
+                "tinygen/runtime_c/include/tg_wide.h")
 
 
 def _run(cmd, cwd, env=None, timeout=600):

@@ -34,7 +34,8 @@ from tinygen.errors import TinygenError
 from tinygen.target_check import emulate_compiled
 
 ROOT = Path(__file__).resolve().parent.parent
-CPUS = ("cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33")
+CPUS = ("cortex-m0", "cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33", "cortex-m55",
+        "rv32imc")
 PORTABLE_CPUS = ("cortex-m4", "cortex-m7")  # also measured with --kernels portable
 PORTABLE = " portable"  # suffix of a run key measured with --kernels portable
 # the emitted model.c names each call: "/* op 3: tg_add <- QLinearAdd '/Add_quant' */"

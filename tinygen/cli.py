@@ -19,6 +19,10 @@ from tinygen.errors import Interrupted, TinygenError, escape_controls, safe_line
 from tinygen.progress import for_cli
 from tinygen.user_input import check_sample_volume, sample_count
 
+# The cores `emulate` and `report --cpu` run on (tinygen/harness/target.py BOARDS).
+TARGET_CPUS = ["cortex-m0", "cortex-m0plus", "cortex-m3", "cortex-m4", "cortex-m7",
+               "cortex-m33", "cortex-m55", "rv32imc", "rv32imac"]
+
 SIZE_RE = re.compile(r"^(0x[0-9a-fA-F]+|\d+)([kKmM]?)$")
 
 
@@ -128,10 +132,9 @@ def make_parser() -> argparse.ArgumentParser:
     pl.add_argument("model")
     pl.add_argument("--svg", metavar="FILE")
     add_build_flags(pl)
-    em = sub.add_parser("emulate", help="build for Cortex-M and run under QEMU")
+    em = sub.add_parser("emulate", help="build for Cortex-M or RISC-V and run under QEMU")
     em.add_argument("model")
-    em.add_argument("--cpu", required=True,
-                    choices=["cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33"])
+    em.add_argument("--cpu", required=True, choices=TARGET_CPUS)
     em.add_argument("--inputs", metavar="FILE.npz")
     em.add_argument("--samples", type=sample_count, default=4, metavar="N")
     em.add_argument("--trace", action="store_true",
@@ -142,7 +145,7 @@ def make_parser() -> argparse.ArgumentParser:
     r.add_argument("-o", "--output", required=True, metavar="REPORT.html")
     r.add_argument("--budget-ram", type=parse_size, metavar="SIZE")
     r.add_argument("--budget-flash", type=parse_size, metavar="SIZE")
-    r.add_argument("--cpu", choices=["cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33"],
+    r.add_argument("--cpu", choices=TARGET_CPUS,
                    help="add emulated instructions per layer and the stack")
     rsrc = r.add_mutually_exclusive_group()
     rsrc.add_argument("--inputs", metavar="FILE.npz",
@@ -305,7 +308,9 @@ def cmd_emulate(args) -> int:
     if args.json:
         print(json.dumps(info))
     else:
-        _show(f"{args.model} on {info['cpu']}: bit_exact={info['bit_exact']}, flash "
+        why = f"; {info['board_reason']}" if info["board_reason"] else ""
+        _show(f"{args.model} on {info['cpu']} ({info['board']}{why}): "
+              f"bit_exact={info['bit_exact']}, flash "
              f"{info['flash_bytes']} B, RAM {info['ram_bytes']} B, stack {info['stack_bytes']} "
              f"B, {info['instructions']} instructions for {info['macs']} MACs (all "
              f"{info['samples']} samples: {info['instructions_min']}.."

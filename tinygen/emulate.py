@@ -1,4 +1,5 @@
-"""Run an emitted tree on an emulated Cortex-M (QEMU MPS2) and measure what the model costs.
+"""Run an emitted tree on an emulated core (QEMU: MPS2 boards and the micro:bit for Cortex-M,
+virt for 32-bit RISC-V) and measure what the model costs.
 
 emulate() builds three images from the same firmware (tinygen/harness/firmware):
   figures  - the model as emitted: outputs, total instructions, stack, flash and RAM;
@@ -22,7 +23,9 @@ from tinygen.harness.toolchain import Toolchain, find_toolchain
 
 # Slots for a tree whose hooks take non-literal op indices (and so cannot be counted).
 FALLBACK_OP_SLOTS = 4096
-_MAILBOX_HEADER_BYTES = 16   # tg_fw_mailbox_t without slots (tg_fw_op_hooks.h)
+# tg_fw_mailbox_t without slots (tg_fw_op_hooks.h): 16 bytes on Arm, 24 on RISC-V (its
+# stamp has three words); room for either.
+_MAILBOX_HEADER_BYTES = 32
 _MAILBOX_SLOT_BYTES = 16
 
 
@@ -239,7 +242,7 @@ def _build_images(b: _Build, info: ModelInfo, requant_float: bool, per_op: bool,
     fw = target.FIRMWARE_DIR
     tree_flags = [f"-I{b.tree_dir}", *_requant_flags(info, requant_float)]
     sources = target.tree_sources(b.tree_dir)
-    jobs = [(fw / "tg_fw_startup.c", "fw", b.firmware_flags()),
+    jobs = [(fw / b.board.startup_source, "fw", b.firmware_flags()),
             (fw / "tg_fw_semihost.c", "fw", b.firmware_flags()),
             (fw / "tg_fw_meas_main.c", "fw", b.firmware_flags()),
             (fw / "tg_fw_dummy_model.c", "fw", b.firmware_flags())]
@@ -258,8 +261,12 @@ def _build_images(b: _Build, info: ModelInfo, requant_float: bool, per_op: bool,
     common = [startup, semihost]
 
     def image(name: str, objects: list[Path], mailbox: int = 0) -> Path:
-        return target.link(objects, b.work / f"{name}.elf", b.board, opt=b.opt,
-                           stack_bytes=stack_bytes, mailbox_bytes=mailbox, tools=b.tools)
+        elf = b.work / f"{name}.elf"
+        stack = stack_bytes
+        if b.board.ram_bytes:
+            stack = _stack_that_fits(b, objects, elf, mailbox)
+        return target.link(objects, elf, b.board, opt=b.opt, stack_bytes=stack,
+                           mailbox_bytes=mailbox, tools=b.tools)
 
     images = {"figures": image("figures", [*tree, main, *common]),
               "baseline": image("baseline", [dummy, main, *common])}
@@ -270,10 +277,47 @@ def _build_images(b: _Build, info: ModelInfo, requant_float: bool, per_op: bool,
     return images
 
 
+class _DoesNotFit(Exception):
+    """The image does not fit the board's RAM (with at least MIN_STACK_BYTES of stack)."""
+
+
+# Below this the measurement firmware itself (main's frame with the I/O buffers, one
+# report line) has no room; a model that leaves less runs on the larger board.
+MIN_STACK_BYTES = 1024
+
+
+def _stack_that_fits(b: _Build, objects: list[Path], elf: Path, mailbox: int) -> int:
+    """The stack a board with little RAM can give: its RAM less everything else the image
+    places there, from a trial link with no stack. Raises _DoesNotFit."""
+    try:
+        target.link(objects, elf, b.board, opt=b.opt, stack_bytes=0, mailbox_bytes=mailbox,
+                    tools=b.tools)
+    except TinygenError as exc:
+        over = re.search(r"region .(RAM|CODE). overflowed by (\d+) bytes", exc.reason)
+        if over:   # CODE: the micro:bit's 256 KiB of flash
+            raise _DoesNotFit(f"{over.group(1)} overflowed by {over.group(2)} bytes"
+                              + (" with no stack" if over.group(1) == "RAM" else "")) from None
+        raise
+    used = sum(size for name, size, flags in target.section_table(elf, b.tools)
+               if "ALLOC" in flags and "READONLY" not in flags)
+    stack = (b.board.ram_bytes - used - 32) // 16 * 16   # 32: the sections' alignment gaps
+    if stack < MIN_STACK_BYTES:
+        raise _DoesNotFit(f"{used} bytes of RAM besides the stack")
+    return stack
+
+
 def _run(elf: Path, board: target.Board, timeout: float,
          tools: Toolchain) -> target.FirmwareReport:
     result = target.run_elf(elf, board, timeout=timeout, tools=tools)
     report = target.parse_report(result.stdout)
+    lockup = result.status != 0 and "Lockup" in result.stderr
+    if board.ram_bytes and (report.fault or lockup
+                            or any(s.stack_overflow for s in report.samples)):
+        # The stack is all the RAM the model left, and its bottom is the end of RAM: an
+        # overflow shows as a fault there, as clobbered paint, or (Armv6-M, when the
+        # fault's own exception frame cannot be stacked) as QEMU's lockup exit.
+        raise _DoesNotFit(f"the stack left in {board.ram_bytes} bytes of RAM overflowed "
+                          f"(fault: {report.fault or ('lockup' if lockup else 'none')})")
     target.check_report(report, result, board)
     return report
 
@@ -333,7 +377,6 @@ def emulate(tree_dir, prefix: str, cpu: str, inputs: list[list[bytes]], *,
     executed instructions (not cycles) for sample 0; "instructions_per_sample" has all.
     flash/RAM are the model's alone. docs/target.md has every key.
     """
-    tools = find_toolchain()
     board = target.board_for(cpu)
     tree_dir = Path(tree_dir).resolve()
     info = read_model_info(tree_dir, prefix, io)
@@ -344,35 +387,60 @@ def emulate(tree_dir, prefix: str, cpu: str, inputs: list[list[bytes]], *,
     try:
         (work / "tg_fw_glue.h").write_text(glue_header(info))
         (work / "tg_fw_samples.h").write_text(samples_header(info, inputs))
-        build = _Build(tools, board, opt, work, tree_dir)
-        images = _build_images(build, info, requant_float, per_op, stack_bytes)
-        report = _run(images["figures"], board, timeout, tools)
-        outputs = _outputs(report, info)
-        per_op_rows: list[dict] = []
-        if "per_op" in images:
-            op_report = _run(images["per_op"], board, timeout, tools)
-            if _outputs(op_report, info) != outputs:
-                raise TinygenError("outputs differ between the plain and the per-op build")
-            per_op_rows = _per_op(op_report)
-        flash, ram = _model_footprint(images, info, tools)
-        totals = [s.instructions - report.calibration for s in report.samples]
-        return {
-            "cpu": cpu, "board": board.machine, "opt": opt, "bit_exact": None,
-            "io": "arena" if report.io_arena else "external",
-            "flash_bytes": flash, "ram_bytes": ram, "arena_bytes": info.arena_bytes,
-            "stack_bytes": max(s.stack_bytes for s in report.samples),
-            "instructions": totals[0], "instructions_per_sample": totals,
-            "per_op": per_op_rows,
-            "forbidden_symbols": target.forbidden_symbols(images["figures"],
-                                                          allow_float=requant_float,
-                                                          tools=tools),
-            "float_instructions": ([] if requant_float else
-                                   target.float_instructions(images["figures"], tools)),
-            "outputs": outputs,
-        }
+        try:
+            return _emulate_on(board, work, tree_dir, info, requant_float=requant_float,
+                               opt=opt, per_op=per_op, timeout=timeout, stack_bytes=stack_bytes)
+        except _DoesNotFit as exc:
+            larger = target.larger_board(board)
+            if larger is None:
+                raise TinygenError(f"{board.machine}: the model does not fit ({exc})") from None
+            figures = _emulate_on(larger, work / larger.machine, tree_dir, info,
+                                  requant_float=requant_float, opt=opt, per_op=per_op,
+                                  timeout=timeout, stack_bytes=stack_bytes)
+            figures["board_reason"] = (f"does not fit {board.machine} "
+                                       f"({board.ram_bytes // 1024} KiB RAM): {exc}")
+            return figures
     finally:
         if not work_dir:
             shutil.rmtree(work, ignore_errors=True)
+
+
+def _emulate_on(board: target.Board, work: Path, tree_dir: Path, info: ModelInfo, *,
+                requant_float: bool, opt: str, per_op: bool, timeout: float,
+                stack_bytes: int) -> dict:
+    """emulate() on one board; raises _DoesNotFit when a small board's RAM is too small."""
+    tools = find_toolchain(board.arch)
+    work.mkdir(parents=True, exist_ok=True)
+    for name in ("tg_fw_glue.h", "tg_fw_samples.h"):   # a second board's build: a subdir
+        if not (work / name).exists():
+            shutil.copyfile(work.parent / name, work / name)
+    build = _Build(tools, board, opt, work, tree_dir)
+    images = _build_images(build, info, requant_float, per_op, stack_bytes)
+    report = _run(images["figures"], board, timeout, tools)
+    outputs = _outputs(report, info)
+    per_op_rows: list[dict] = []
+    if "per_op" in images:
+        op_report = _run(images["per_op"], board, timeout, tools)
+        if _outputs(op_report, info) != outputs:
+            raise TinygenError("outputs differ between the plain and the per-op build")
+        per_op_rows = _per_op(op_report)
+    flash, ram = _model_footprint(images, info, tools)
+    totals = [s.instructions - report.calibration for s in report.samples]
+    return {
+        "cpu": board.cpu, "board": board.machine, "board_reason": "", "opt": opt,
+        "bit_exact": None,
+        "io": "arena" if report.io_arena else "external",
+        "flash_bytes": flash, "ram_bytes": ram, "arena_bytes": info.arena_bytes,
+        "stack_bytes": max(s.stack_bytes for s in report.samples),
+        "instructions": totals[0], "instructions_per_sample": totals,
+        "per_op": per_op_rows,
+        "forbidden_symbols": target.forbidden_symbols(images["figures"],
+                                                      allow_float=requant_float,
+                                                      tools=tools, board=board),
+        "float_instructions": ([] if requant_float else
+                               target.float_instructions(images["figures"], tools)),
+        "outputs": outputs,
+    }
 
 
 def json_ready(figures: dict) -> dict:

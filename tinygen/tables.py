@@ -16,7 +16,8 @@ from tinygen.codegen.emit import render_tree
 from tinygen.compiler import BuildOptions, compile_model, summary
 
 ROOT = Path(__file__).resolve().parent.parent
-CPUS = ("cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33")
+CPUS = ("cortex-m0", "cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33", "cortex-m55",
+        "rv32imc")
 
 
 def example_models() -> list[Path]:
@@ -59,13 +60,13 @@ def target_rows() -> list[str]:
         find_toolchain()
     except TinygenError as exc:
         return [f"(not measured: {exc.one_line()})"]
-    from tinygen.target_check import emulate_model
+    from tinygen.target_check import CPUS_WITHOUT_FPU, emulate_model
     rows = ["| model | CPU | requant | bit-exact | flash B | RAM B | stack B | instructions "
             "| instructions/MAC |", "|---|---|---|---|---|---|---|---|---|"]
     for m in example_models():
         for cpu in CPUS:
             for mode in ("fixed", "float"):
-                if mode == "float" and cpu == "cortex-m3":
+                if mode == "float" and cpu in CPUS_WITHOUT_FPU:
                     continue
                 info = emulate_model(str(m), cpu, BuildOptions(requant=mode), samples=2)
                 ipm = info["instructions"] / max(info["macs"], 1)

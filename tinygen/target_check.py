@@ -70,7 +70,8 @@ def emulate_compiled(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
                                                    row.get("instructions_per_sample", [])],
                        "macs": call["macs"]})
     counts = [int(v) for v in fig["instructions_per_sample"]]
-    return {"cpu": cpu, "bit_exact": exact, "flash_bytes": fig["flash_bytes"],
+    return {"cpu": cpu, "board": fig["board"], "board_reason": fig["board_reason"],
+            "bit_exact": exact, "flash_bytes": fig["flash_bytes"],
             "ram_bytes": fig["ram_bytes"], "stack_bytes": fig["stack_bytes"],
             "instructions": fig["instructions"], "instructions_per_sample": counts,
             "instructions_min": min(counts), "instructions_max": max(counts),
@@ -79,7 +80,7 @@ def emulate_compiled(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
             "float_instructions": fig.get("float_instructions", [])}
 
 
-CPUS_WITHOUT_FPU = ("cortex-m3",)
+CPUS_WITHOUT_FPU = ("cortex-m0", "cortex-m0plus", "cortex-m3", "rv32imc", "rv32imac")
 
 
 def emulate_model(path: str, cpu: str, opts: BuildOptions, samples: int = 4,
@@ -88,7 +89,7 @@ def emulate_model(path: str, cpu: str, opts: BuildOptions, samples: int = 4,
         # float mode's exact-rounding guarantees rest on IEEE single precision hardware
         # (and an exact fused multiply-add); software float would not keep them
         raise TinygenError(f"{cpu} has no FPU: float requantization is for cores with one "
-                           "(cortex-m4/m7/m33); use --requant fixed", file=path)
+                           "(cortex-m4/m7/m33/m55); use --requant fixed", file=path)
     c = compile_model(path, opts)
     data = load_inputs(c.graph, inputs) if inputs else random_inputs(c.graph, samples)
     if not data:

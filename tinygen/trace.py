@@ -611,8 +611,10 @@ def target_captures(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
     from tinygen.harness.toolchain import find_toolchain
 
     g = c.graph
-    tools = find_toolchain()
     board = target.board_for(cpu)
+    # the trace build carries every output's capture: run it where RAM is ample
+    board = target.larger_board(board) or board
+    tools = find_toolchain(board.arch)
     with tempfile.TemporaryDirectory(prefix="tinygen-target-trace-") as tmp:
         root = Path(work) if work else Path(tmp)
         tree, sites, _ = trace_tree(c, flags, root / "tree")
@@ -626,7 +628,7 @@ def target_captures(c: Compiled, samples: list[list[np.ndarray]], cpu: str,
                     f"-I{root}", f"-I{fw}", f"-I{tree}"]
         objs = [target.compile_c(fw / name, root / "fw" / name.replace(".c", ".o"), board,
                                  opt=opt, flags=fw_flags, tools=tools)
-                for name in ("tg_fw_startup.c", "tg_fw_semihost.c", "tg_fw_meas_main.c",
+                for name in (board.startup_source, "tg_fw_semihost.c", "tg_fw_meas_main.c",
                              "tg_fw_trace.c")]
         tree_flags = [f"-I{tree}", "-include", str(tree / GLUE_NAME)]
         objs += [target.compile_c(src, root / "tree_o" / f"{src.stem}.o", board, opt=opt,

@@ -90,7 +90,7 @@ static void tg_mat_put(const tg_requant_t *rq, void *y, int32_t c, int32_t rc, i
 TG_INLINE void tg_mat_put_fast(void *y, int32_t c, const int32_t *k, int32_t acc, int32_t pre,
                                int32_t lo, int32_t hi)
 {
-    const int32_t top = (int32_t)(((int64_t)(int32_t)((uint32_t)acc << pre) * k[0]) >> 32);
+    const int32_t top = tg_mul_hi32((int32_t)((uint32_t)acc << pre), k[0]);
     const int32_t v = (int32_t)((uint32_t)top + (uint32_t)k[1]) >> (k[2] & 31);
     ((int8_t *)y)[c] = (int8_t)(v < lo ? lo : (v > hi ? hi : v));
 }

@@ -22,6 +22,7 @@
  * Block primitives: tg_rq_load / tg_rq_apply keep one channel's constants in registers
  * across many outputs; tg_requant_pixel does the consecutive channels of one pixel.
  * Needs arithmetic right shift of negative signed values (gcc, clang, arm-none-eabi-gcc).
+ * The 64-bit products go through tg_wide.h: exact without a long multiply on Armv6-M.
  */
 #ifndef TG_REQUANT_H
 #define TG_REQUANT_H
@@ -31,6 +32,7 @@
 
 #include "tg_config.h"
 #include "tg_arm_dsp.h"
+#include "tg_wide.h"
 
 #if defined(__FAST_MATH__) && TG_WITH_FLOAT_REQUANT
 #error "float requantization must not be compiled with -ffast-math (it would reassociate the rounding)"
@@ -69,7 +71,7 @@ static inline int32_t tg_round_half_even(float v)
 /* Fixed-point multiply with one rounding: floor((x * mult + 2^(shift-1)) / 2^shift). */
 static inline int64_t tg_mul_shift(int64_t x, int32_t mult, int32_t shift)
 {
-    return (x * (int64_t)mult + ((int64_t)1 << (shift - 1))) >> shift;
+    return (tg_mul64x32(x, mult) + ((int64_t)1 << (shift - 1))) >> shift;
 }
 
 static inline int32_t tg_clamp32(int64_t v, int32_t lo, int32_t hi)
@@ -109,7 +111,7 @@ TG_INLINE int32_t tg_rq_apply(tg_rq_chan_t k, int32_t acc)
 #if TG_DSP
     return __ssat(tg_smmla(acc, k.mult, k.add) >> k.shift, 8);
 #else
-    const int32_t hi = (int32_t)(((int64_t)acc * k.mult) >> 32);
+    const int32_t hi = tg_mul_hi32(acc, k.mult);
     return tg_sat8((int32_t)((uint32_t)hi + (uint32_t)k.add) >> k.shift);
 #endif
 }

@@ -27,7 +27,7 @@ typedef void (*tg_eltwise_row_fn)(const tg_eltwise_job_t *job, const int8_t *a, 
 static int64_t tg_add_rescale(int32_t v, int32_t zp, int32_t left_shift, int32_t mult,
                               int32_t shift)
 {
-    return tg_mul_shift((int64_t)(v - zp) * ((int64_t)1 << left_shift), mult, shift);
+    return tg_mul_shift(tg_mul64x32(v - zp, (int32_t)1 << left_shift), mult, shift);
 }
 
 /* Fixed Add through the tables over n elements, a and b sa and sb apart (0: the broadcast

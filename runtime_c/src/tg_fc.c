@@ -10,7 +10,8 @@
  * Cores with the DSP extension (Cortex-M4/M7/M33...) run the two-output loop as short inline
  * assembly with SXTAB16/SXTB16/SMLAD (four products per SMLAD pair); other cores, other
  * compilers and unoptimized builds (where gcc cannot give the assembly its registers) run
- * plain C. The helpers are private to this file, as in tg_conv.c.
+ * plain C. Cores with Helium (Cortex-M55) run it as a tail-predicated vector loop
+ * (tg_arm_mve.h). The helpers are private to this file, as in tg_conv.c.
  * A constant weight comes as a pack instead (tg_fc.h): each row runs on the blocked matrix
  * core (tg_mat.h: four output channels per pass, SMLAD assembly on DSP cores).
  */
@@ -20,6 +21,7 @@
 
 #define TG_MAT_ROW 1  /* the one-row routines of the matrix core */
 #include "tg_mat.h"
+#include "tg_arm_mve.h"
 
 #define TG_FC_DSP TG_DSP  /* tg_arm_dsp.h: off with --kernels portable */
 
@@ -49,7 +51,14 @@ static TG_FC_NOINLINE void tg_fc_dot_1x2(const int8_t *x, const int8_t *w0, cons
 {
     int32_t a0 = acc[0], a1 = acc[1];
     int32_t n;
-#if TG_FC_DSP
+#if TG_MVE
+    if (len > 0) {  /* Helium: the whole row, tail included (tg_arm_mve.h) */
+        tg_mve_dot_1x2(x, w0, w1, len, xz, acc);
+        acc[0] += a0;
+        acc[1] += a1;
+        return;
+    }
+#elif TG_FC_DSP
     if (len >= 4) {
         const uint32_t off = (uint32_t)(uint16_t)(-xz) * 0x00010001u;  /* -xz in both lanes */
         uint32_t xe, xv, wv, we;
@@ -105,6 +114,13 @@ static void tg_fc_rows_contiguous(const tg_fc_params_t *p, const int8_t *xr, con
 {
     const int32_t x_sum = p->w_zp != NULL ? tg_fc_x_sum(xr, p->depth, p->x_zp) : 0;
     int32_t o;
+#if TG_MVE
+    if (p->rq != NULL && p->rq->form == TG_RQ_FAST && p->depth > 0) {
+        tg_mve_fc_fast(xr, w, p->w_stride_o, p->depth, p->out, p->x_zp, p->w_zp, x_sum, bias,
+                       p->rq, (int8_t *)y + yi);
+        return;
+    }
+#endif
     for (o = 0; o < p->out; o += 2) {
         const int32_t o1 = o + 1 < p->out ? o + 1 : o;
         int32_t acc[2];

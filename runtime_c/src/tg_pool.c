@@ -116,7 +116,7 @@ static void tg_pool_sum(const tg_pool_params_t *p, const int8_t *xb, const tg_po
  * / count). */
 static int32_t tg_pool_fixed_avg(int32_t acc, int32_t count, int32_t mult, int32_t shift)
 {
-    const int64_t prod = (int64_t)acc * mult;
+    const int64_t prod = tg_mul32_wide(acc, mult);
     const int64_t q = prod >> shift;
     const uint64_t mask = ((uint64_t)1 << shift) - 1u;
     const uint64_t r = (uint64_t)prod & mask;

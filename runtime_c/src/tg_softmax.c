@@ -12,7 +12,7 @@
 
 void tg_softmax(const tg_softmax_params_t *p, const int8_t *x, int8_t *y)
 {
-    const int64_t inv = p->inv_out_q8;
+    const int32_t inv = p->inv_out_q8;
     int32_t r, i;
     for (r = 0; r < p->rows; ++r) {
         int32_t mx = -128;
@@ -27,9 +27,9 @@ void tg_softmax(const tg_softmax_params_t *p, const int8_t *x, int8_t *y)
         half = (int64_t)256 * sum;
         den = (int64_t)512 * sum;
         for (i = 0; i < p->len; ++i) {
-            const int64_t num = 2 * (int64_t)p->exp_table[mx - x[i]] * inv + half;
+            const int64_t num = tg_mul64x32(2 * (int64_t)p->exp_table[mx - x[i]], inv) + half;
             int64_t q = num / den;
-            if (q * den == num && (q & 1)) {
+            if (num % den == 0 && (q & 1)) {
                 --q; /* an exact tie: to even, as QuantizeLinear rounds */
             }
             q += p->out_zp;

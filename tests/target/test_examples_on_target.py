@@ -11,11 +11,16 @@ import pytest
 
 from tinygen.compiler import BuildOptions, compile_model
 from tinygen.errors import TinygenError
+from tinygen.target_check import CPUS_WITHOUT_FPU
 
 pytestmark = pytest.mark.target
 ROOT = Path(__file__).resolve().parents[2]
 MODELS = sorted(p for p in (ROOT / "examples").glob("*/*.onnx") if not p.stem.endswith("_float"))
-CPUS = ("cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33")
+CPUS = ("cortex-m0", "cortex-m3", "cortex-m4", "cortex-m7", "cortex-m33", "cortex-m55",
+        "rv32imc")
+# Cores with the same instruction set as one above (M0+ = M0's Armv6-M, rv32imac = rv32imc
+# plus atomics, no compressed-instruction change): one model each.
+SAME_ISA_CPUS = ("cortex-m0plus", "rv32imac")
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -39,10 +44,25 @@ def test_fixed_mode_is_bit_exact_on_the_core(model, cpu):
     assert info["instructions"] > info["macs"]
     assert sum(r["instructions"] for r in info["per_op"]) <= info["instructions"]
     assert [r["macs"] for r in info["per_op"] if r["macs"]]
+    if cpu == "cortex-m0":
+        # the micro:bit where the model fits its 16 KiB of RAM, else the AN385, saying why
+        assert info["board"] in ("microbit", "mps2-an385")
+        assert (info["board"] == "microbit") == (info["board_reason"] == "")
+        if info["board"] != "microbit":
+            assert info["board_reason"].startswith("does not fit microbit")
+
+
+@pytest.mark.parametrize("cpu", SAME_ISA_CPUS)
+def test_fixed_mode_is_bit_exact_on_the_same_isa_cores(cpu):
+    from tinygen.target_check import emulate_model
+    model = next(m for m in MODELS if m.stem == "digits")
+    info = emulate_model(str(model), cpu, BuildOptions(requant="fixed"), samples=2)
+    assert info["bit_exact"] is True and info["cpu"] == cpu
+    assert info["forbidden_symbols"] == [] and info["float_instructions"] == []
 
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda p: p.stem)
-@pytest.mark.parametrize("cpu", [c for c in CPUS if c != "cortex-m3"])
+@pytest.mark.parametrize("cpu", [c for c in CPUS if c not in CPUS_WITHOUT_FPU])
 def test_float_mode_is_bit_exact_on_cores_with_an_fpu(model, cpu):
     from tinygen.target_check import emulate_model
     info = emulate_model(str(model), cpu, BuildOptions(requant="float"), samples=3)

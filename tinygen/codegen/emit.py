@@ -237,7 +237,9 @@ PRIVATE_HEADERS = {"conv": ("tg_mat.h", "tg_window.h"), "pwconv": ("tg_mat.h",),
 
 def runtime_files(families: set[str]) -> list[tuple[str, Path]]:
     files = [("tg_requant.h", RUNTIME / "include" / "tg_requant.h"),
-             ("tg_arm_dsp.h", RUNTIME / "include" / "tg_arm_dsp.h")]
+             ("tg_arm_dsp.h", RUNTIME / "include" / "tg_arm_dsp.h"),
+             ("tg_wide.h", RUNTIME / "include" / "tg_wide.h"),
+             ("tg_arm_mve.h", RUNTIME / "include" / "tg_arm_mve.h")]
     private = sorted({h for f in families for h in PRIVATE_HEADERS.get(f, ())})
     files += [(h, RUNTIME / "include" / h) for h in private]
     for f in sorted(families):

@@ -1,4 +1,5 @@
-"""Build C for Cortex-M with arm-none-eabi-gcc and run it on QEMU's MPS2 boards.
+"""Build C for Cortex-M (arm-none-eabi-gcc) or 32-bit RISC-V (riscv64-unknown-elf-gcc) and
+run it on QEMU: MPS2 boards and the micro:bit for Arm, the virt machine for RISC-V.
 
 The pieces here are generic (compile, link, run, read the firmware's report, inspect an
 image); tinygen/emulate.py puts them together for an emitted tree. docs/target.md says
@@ -9,6 +10,7 @@ from __future__ import annotations
 import re
 import subprocess
 from dataclasses import dataclass, field
+from fractions import Fraction
 from pathlib import Path
 
 from tinygen.errors import TinygenError
@@ -43,18 +45,64 @@ class Board:
     cpu_flags: tuple[str, ...]
     linker_script: str
     board_define: str
-    timer_hz: int            # clock of the CMSDK dual timer (SYSCLK in QEMU's board model)
+    timer_hz: int            # clock of the fine counter the firmware reads (tg_fw_counter.h)
+    arch: str = "arm"        # "arm" or "riscv": which toolchain and startup file
+    ram_bytes: int = 0       # RAM the whole image must fit in (stack sized to the rest);
+                             # 0: ample, the stack gets DEFAULT_STACK_BYTES
+    larger: str = ""         # key of LARGER_BOARDS that runs the same code with more RAM
+
+    @property
+    def tick(self) -> Fraction:
+        """The fine counter's period in ns (31.25 for the AN547's 32 MHz counter)."""
+        return Fraction(1_000_000_000, self.timer_hz)
 
     @property
     def tick_ns(self) -> int:
-        return 1_000_000_000 // self.timer_hz
+        """The period's numerator; the firmware divides by 2^tick_log2_den (a power of two)."""
+        return self.tick.numerator
+
+    @property
+    def tick_log2_den(self) -> int:
+        den = self.tick.denominator
+        if den & (den - 1):
+            raise TinygenError(f"{self.machine}: timer period {self.tick} ns has a denominator "
+                               "that is not a power of two")
+        return den.bit_length() - 1
 
     @property
     def hard_float(self) -> bool:
         return "-mfloat-abi=hard" in self.cpu_flags
 
+    @property
+    def startup_source(self) -> str:
+        """The firmware file with this board's reset and fault handling."""
+        return "tg_fw_rv_startup.c" if self.arch == "riscv" else "tg_fw_startup.c"
+
+    @property
+    def long_multiply_helpers(self) -> frozenset[str]:
+        """Library helpers of a 64-bit multiply, which fixed builds for a core without a
+        32x32->64 multiply instruction must not call (tg_armv6m.h avoids them)."""
+        if self.arch == "arm" and self.cpu in ARMV6M_CPUS:
+            return frozenset({"__aeabi_lmul", "__muldi3"})
+        return frozenset({"__muldi3"}) if self.arch == "riscv" else frozenset()
+
+
+# Armv6-M: no DSP, no long multiply, no divide. QEMU models the Cortex-M0 only; the M0+
+# runs the same instruction set, so its code runs on the same boards.
+ARMV6M_CPUS = ("cortex-m0", "cortex-m0plus")
+_ARMV6M_FLAGS = {cpu: (f"-mcpu={cpu}", "-mthumb", "-mfloat-abi=soft") for cpu in ARMV6M_CPUS}
+MICROBIT_RAM_BYTES = 16 * 1024
+# RISC-V: Debian's rv32 libraries (libgcc, picolibc) come for rv32im and rv32imac; gcc
+# links rv32imc code against the rv32im ones (no compressed instructions in the library).
+_RV_FLAGS = {arch: (f"-march={arch}", "-mabi=ilp32") for arch in ("rv32imc", "rv32imac")}
 
 BOARDS: dict[str, Board] = {
+    "cortex-m0": Board("cortex-m0", "microbit", _ARMV6M_FLAGS["cortex-m0"], "microbit.ld",
+                       "TG_FW_BOARD_MICROBIT", 8_000_000, ram_bytes=MICROBIT_RAM_BYTES,
+                       larger="cortex-m0"),
+    "cortex-m0plus": Board("cortex-m0plus", "microbit", _ARMV6M_FLAGS["cortex-m0plus"],
+                           "microbit.ld", "TG_FW_BOARD_MICROBIT", 8_000_000,
+                           ram_bytes=MICROBIT_RAM_BYTES, larger="cortex-m0plus"),
     "cortex-m3": Board("cortex-m3", "mps2-an385", ("-mcpu=cortex-m3", "-mthumb",
                        "-mfloat-abi=soft"), "mps2_an385.ld", "TG_FW_BOARD_AN385", 25_000_000),
     "cortex-m4": Board("cortex-m4", "mps2-an386", ("-mcpu=cortex-m4", "-mthumb",
@@ -66,6 +114,24 @@ BOARDS: dict[str, Board] = {
     "cortex-m33": Board("cortex-m33", "mps2-an505", ("-mcpu=cortex-m33", "-mthumb",
                         "-mfpu=fpv5-sp-d16", "-mfloat-abi=hard"), "mps2_an505.ld",
                         "TG_FW_BOARD_AN505", 20_000_000),
+    # Armv8.1-M with MVE (Helium); the SSE-300's system counter runs at 32 MHz.
+    "cortex-m55": Board("cortex-m55", "mps3-an547", ("-mcpu=cortex-m55", "-mthumb",
+                        "-mfloat-abi=hard"), "mps3_an547.ld", "TG_FW_BOARD_AN547", 32_000_000),
+    # minstret under -icount counts virtual nanoseconds: a 1 GHz "timer".
+    "rv32imc": Board("rv32imc", "virt", _RV_FLAGS["rv32imc"], "tg_fw_rv_virt.ld",
+                     "TG_FW_BOARD_RV_VIRT", 1_000_000_000, arch="riscv"),
+    "rv32imac": Board("rv32imac", "virt", _RV_FLAGS["rv32imac"], "tg_fw_rv_virt.ld",
+                      "TG_FW_BOARD_RV_VIRT", 1_000_000_000, arch="riscv"),
+}
+
+# Where a model too big for the micro:bit's 16 KiB runs: the AN385 (4 MiB of RAM), whose
+# Cortex-M3 executes the same Armv6-M image instruction for instruction (Armv6-M is a
+# subset of Armv7-M; QEMU 7.2 accepts no other core on that board). The compiler and
+# assembler, given -mcpu=cortex-m0[plus], have already refused anything outside Armv6-M.
+LARGER_BOARDS: dict[str, Board] = {
+    cpu: Board(cpu, "mps2-an385", _ARMV6M_FLAGS[cpu], "mps2_an385.ld", "TG_FW_BOARD_AN385",
+               25_000_000)
+    for cpu in ARMV6M_CPUS
 }
 
 
@@ -77,9 +143,15 @@ def board_for(cpu: str) -> Board:
         raise TinygenError(f"unknown cpu '{cpu}'; choose one of {', '.join(BOARDS)}") from None
 
 
+def larger_board(board: Board) -> Board | None:
+    """The board with more RAM that runs `board`'s code, or None."""
+    return LARGER_BOARDS.get(board.larger) if board.larger else None
+
+
 def firmware_defines(board: Board) -> list[str]:
     """-D flags every firmware source needs (board addresses, counter scaling)."""
     return [f"-D{board.board_define}", f"-DTG_FW_TICK_NS={board.tick_ns}u",
+            f"-DTG_FW_TICK_LOG2_DEN={board.tick_log2_den}",
             f"-DTG_FW_ICOUNT_SHIFT={ICOUNT_SHIFT}"]
 
 
@@ -94,15 +166,21 @@ def _first_lines(text: str, count: int = 3) -> str:
 def compile_c(source: Path, obj: Path, board: Board, *, opt: str = "-Os",
               flags: list[str] | None = None, tools: Toolchain | None = None) -> Path:
     """Compile one C file for `board` with the strict warning set; raise on any diagnostic."""
-    tools = tools or find_toolchain()
+    tools = tools or find_toolchain(board.arch)
     obj.parent.mkdir(parents=True, exist_ok=True)
-    cmd = [tools.gcc, *board.cpu_flags, opt, *STRICT_FLAGS, *SECTION_FLAGS, *(flags or []),
-           "-c", str(source), "-o", str(obj)]
+    cmd = [tools.gcc, *board.cpu_flags, *_libc_specs(board), opt, *STRICT_FLAGS,
+           *SECTION_FLAGS, *(flags or []), "-c", str(source), "-o", str(obj)]
     proc = subprocess.run(cmd, capture_output=True, text=True)
     if proc.returncode != 0 or proc.stderr.strip():
-        raise TinygenError(f"arm-none-eabi-gcc {opt} for {board.cpu} failed on {source.name}: "
-                           f"{_first_lines(proc.stderr)}")
+        raise TinygenError(f"{Path(tools.gcc).name} {opt} for {board.cpu} failed on "
+                           f"{source.name}: {_first_lines(proc.stderr)}")
     return obj
+
+
+def _libc_specs(board: Board) -> list[str]:
+    """The C library's specs: newlib-nano for Arm (at link time only, as before), picolibc
+    for RISC-V (its headers too)."""
+    return ["--specs=picolibc.specs"] if board.arch == "riscv" else []
 
 
 def tree_sources(tree_dir: Path) -> list[Path]:
@@ -126,9 +204,11 @@ def check_tree_compiles(tree_dir: Path, cpu: str, opt: str, out_dir: Path,
 def link(objects: list[Path], elf: Path, board: Board, *, opt: str = "-Os",
          stack_bytes: int = DEFAULT_STACK_BYTES, mailbox_bytes: int = 0,
          tools: Toolchain | None = None) -> Path:
-    """Link objects with the board's linker script and newlib-nano (no start files)."""
-    tools = tools or find_toolchain()
-    cmd = [tools.gcc, *board.cpu_flags, opt, "-nostartfiles", "--specs=nano.specs",
+    """Link objects with the board's linker script and its C library (newlib-nano for Arm,
+    picolibc for RISC-V), no start files."""
+    tools = tools or find_toolchain(board.arch)
+    specs = _libc_specs(board) or ["--specs=nano.specs"]
+    cmd = [tools.gcc, *board.cpu_flags, opt, "-nostartfiles", *specs,
            "-Wl,--gc-sections", f"-Wl,-Map={elf.with_suffix('.map')}",
            f"-L{FIRMWARE_DIR}", "-T", board.linker_script,
            f"-Wl,--defsym=tg_fw_stack_bytes={stack_bytes}",
@@ -153,7 +233,9 @@ class RunResult:
 def qemu_command(elf: Path, board: Board, tools: Toolchain) -> list[str]:
     """QEMU invocation: instruction-counted virtual time, semihosting on stdout, no devices
     on the host side."""
-    return [tools.qemu, "-M", board.machine, "-kernel", str(elf),
+    # virt: no firmware; QEMU's reset code jumps to the start of RAM, where the image starts.
+    firmware = ["-bios", "none"] if board.arch == "riscv" else []
+    return [tools.qemu, "-M", board.machine, *firmware, "-kernel", str(elf),
             "-icount", f"shift={ICOUNT_SHIFT},align=off,sleep=off",
             "-chardev", "stdio,id=tgsh",
             "-semihosting-config", "enable=on,target=native,chardev=tgsh",
@@ -164,7 +246,7 @@ def qemu_command(elf: Path, board: Board, tools: Toolchain) -> list[str]:
 def run_elf(elf: Path, board: Board, *, timeout: float = DEFAULT_TIMEOUT_S,
             tools: Toolchain | None = None) -> RunResult:
     """Run an image to its semihosting exit; raise if QEMU fails to start or times out."""
-    tools = tools or find_toolchain()
+    tools = tools or find_toolchain(board.arch)
     cmd = qemu_command(elf, board, tools)
     try:
         proc = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout,
@@ -263,7 +345,8 @@ def check_report(report: FirmwareReport, result: RunResult, board: Board) -> Non
         raise TinygenError(f"{where}: arena I/O asked for, but the model's _input()/_output() "
                            "gave NULL (emitted with --io external?)")
     if report.fault:
-        raise TinygenError(f"{where}: firmware faulted (ipsr pc cfsr hfsr = {report.fault})")
+        names = "mcause mepc mtval -" if board.arch == "riscv" else "ipsr pc cfsr hfsr"
+        raise TinygenError(f"{where}: firmware faulted ({names} = {report.fault})")
     if result.status != 0 or not report.finished:
         raise TinygenError(f"{where}: firmware exited with status {result.status} before "
                            f"finishing; stderr: {_first_lines(result.stderr)}")
@@ -347,22 +430,55 @@ FLOAT_SYMBOL_RE = re.compile(
     r"|trunc|fabs|fmod|frexp|ldexp|modf|tanh|sinh|cosh|sin|cos|tan|atan|atan2|erf)f?$")
 
 
-def forbidden_symbols(elf: Path, *, allow_float: bool,
-                      tools: Toolchain | None = None) -> list[str]:
+def forbidden_symbols(elf: Path, *, allow_float: bool, tools: Toolchain | None = None,
+                      board: Board | None = None) -> list[str]:
     """Symbols a bare-metal model image must not define: the heap always, float support
-    unless float requantization was asked for. Empty list when clean."""
+    unless float requantization was asked for, and in fixed builds for `board` the
+    library's 64-bit multiply where the core has no long multiply. Empty list when clean."""
     names = symbol_sizes(elf, tools)
     bad = [n for n in names if n in HEAP_SYMBOLS]
     if not allow_float:
         bad += [n for n in names if FLOAT_SYMBOL_RE.match(n)]
+        if board is not None and board.long_multiply_helpers:
+            bad += long_multiply_calls(elf, board.long_multiply_helpers, tools)
     return sorted(set(bad))
 
 
+def _calls(elf: Path, tools: Toolchain | None) -> list[tuple[str, str]]:
+    """(calling function, called symbol) of every direct call (bl/jal) in the image."""
+    tools = tools or find_toolchain()
+    out = subprocess.run([tools.objdump, "-d", "--no-show-raw-insn", str(elf)],
+                         capture_output=True, text=True, check=True).stdout
+    calls, function = [], "?"
+    for line in out.splitlines():
+        head = re.match(r"^[0-9a-f]+ <(.+)>:$", line)
+        if head:
+            function = head.group(1)
+            continue
+        call = re.match(r"^\s+[0-9a-f]+:\s+(?:bl|blx|jal|call|tail)\s+.*<([^>+]+)>", line)
+        if call:
+            calls.append((function, call.group(1)))
+    return calls
+
+
+def long_multiply_calls(elf: Path, helpers: frozenset[str],
+                        tools: Toolchain | None = None) -> list[str]:
+    """'helper (from function)' for each call of a 64-bit multiply helper from the image's
+    own code. The C library's 64-bit division helper multiplies internally (libgcc's
+    __gnu_ldivmod_helper calls __aeabi_lmul); calls between library helpers ("__" names)
+    are its business, not the model's."""
+    return [f"{callee} (from {caller})" for caller, callee in _calls(elf, tools)
+            if callee in helpers and not caller.startswith("__")]
+
+
 # FPU data-processing instructions (moves, loads and stores of FP registers are left
-# out: gcc may use s-registers as spill space in pure integer code).
+# out: gcc may use s-registers as spill space in pure integer code). Arm VFP names, then
+# the RISC-V F/D extension's (the rv32imc/imac cores have none; a listing is a wrong build).
 FP_ARITHMETIC_RE = re.compile(
     r"^v(?:add|sub|mul|nmul|div|fma|fms|fnma|fnms|mla|mls|nmla|nmls|sqrt|abs|neg|cvt\w*"
-    r"|cmp\w*|rint\w*|sel\w*|maxnm|minnm)(?:\.|$)")
+    r"|cmp\w*|rint\w*|sel\w*|maxnm|minnm)(?:\.|$)"
+    r"|^f(?:add|sub|mul|div|sqrt|min|max|madd|msub|nmadd|nmsub|cvt|eq|lt|le|class"
+    r"|sgnj\w*)\.")
 
 
 def float_instructions(elf: Path, tools: Toolchain | None = None) -> list[str]:

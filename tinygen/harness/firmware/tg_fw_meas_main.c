@@ -28,7 +28,11 @@
 extern uint32_t tg_fw_stack_bottom[];
 
 /* The current stack pointer; a macro so that it reads main's own frame. */
+#if defined(__riscv)
+#define TG_FW_READ_SP(var) __asm__ volatile("mv %0, sp" : "=r"(var))
+#else
 #define TG_FW_READ_SP(var) __asm__ volatile("mov %0, sp" : "=r"(var))
+#endif
 
 static void tg_fw_report_u64(tg_fw_line_t *line, uint64_t value)
 {

@@ -1,4 +1,5 @@
-/* tg_fw_semihost.h - Arm semihosting calls (bkpt 0xab) for the measurement firmware.
+/* tg_fw_semihost.h - semihosting calls for the measurement firmware (Arm: bkpt 0xab;
+ * RISC-V: the ebreak sequence of the RISC-V semihosting spec).
  *
  * Contract: text goes to the host console with SYS_WRITE0; tg_fw_exit() ends the
  * emulator with the given status via SYS_EXIT_EXTENDED and never returns.

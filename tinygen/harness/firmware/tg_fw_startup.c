@@ -4,6 +4,7 @@
  * zeroes .bss, calls main() and exits the emulator with main's return value. Any
  * fault prints one "TGFW FAULT" line and exits with status TG_FW_FAULT_STATUS.
  * The initial stack pointer is the first word of .vectors (set in the linker script).
+ * Arm only (Armv6-M, Armv7-M, Armv8-M); RISC-V boards use tg_fw_rv_startup.c.
  */
 #include <stdint.h>
 
@@ -49,7 +50,7 @@ static void tg_fw_enable_fpu(void)
 
 static void tg_fw_limit_stack(void)
 {
-#if defined(__ARM_ARCH_8M_MAIN__)
+#if defined(__ARM_ARCH_8M_MAIN__) || defined(__ARM_ARCH_8_1M_MAIN__)
     /* Armv8-M: overflowing the stack region faults instead of corrupting memory. */
     __asm__ volatile("msr msplim, %0" : : "r"(tg_fw_stack_bottom));
 #endif
@@ -76,11 +77,21 @@ void tg_fw_reset(void)
  * have been a stack overflow. */
 void tg_fw_fault(void)
 {
+#if defined(__ARM_ARCH_6M__)
+    /* Thumb-1: no movw/movt, and B reaches only 2 KiB; literals and BX instead. */
+    __asm__ volatile("mrs r0, msp\n\t"
+                     "ldr r1, =tg_fw_stack_top\n\t"
+                     "mov sp, r1\n\t"
+                     "ldr r1, =tg_fw_fault_report\n\t"
+                     "bx r1\n\t"
+                     ".ltorg");
+#else
     __asm__ volatile("mrs r0, msp\n\t"
                      "movw r1, #:lower16:tg_fw_stack_top\n\t"
                      "movt r1, #:upper16:tg_fw_stack_top\n\t"
                      "mov sp, r1\n\t"
                      "b tg_fw_fault_report");
+#endif
 }
 
 void tg_fw_fault_report(const uint32_t *frame)
@@ -91,8 +102,14 @@ void tg_fw_fault_report(const uint32_t *frame)
     tg_fw_line_start(&line, "TGFW FAULT");
     tg_fw_line_hex32(&line, ipsr & 0x1FFu);
     tg_fw_line_hex32(&line, frame[6]);          /* stacked PC */
+#if defined(__ARM_ARCH_6M__)
+    /* Armv6-M has no fault status registers (reading them would fault again). */
+    tg_fw_line_hex32(&line, 0u);
+    tg_fw_line_hex32(&line, 0u);
+#else
     tg_fw_line_hex32(&line, TG_FW_SCB_CFSR);
     tg_fw_line_hex32(&line, TG_FW_SCB_HFSR);
+#endif
     tg_fw_line_end(&line);
     tg_fw_exit(TG_FW_FAULT_STATUS);
 }
