@@ -9,6 +9,9 @@ C written to a temporary folder), one run each on this machine, in one process.
 """
 from __future__ import annotations
 
+import contextlib
+import io
+import platform
 import tempfile
 import time
 from pathlib import Path
@@ -59,22 +62,25 @@ def chain_model(n_ops: int, channels: int = 4, side: int = 2, seed: int = 0,
 
 
 def time_chain(n_ops: int, workdir: Path) -> dict:
-    """Seconds to plan (schedule, buffers, placement, verifier) and to emit a chain."""
+    """Seconds to plan (schedule, buffers, placement, verifier) and to emit a chain: wall
+    time and this process's CPU time (the machine is shared; CPU time is the steadier)."""
     from tinygen.cli import main
     from tinygen.compiler import BuildOptions, compile_model, plan_arena
 
     path = workdir / f"chain{n_ops}.onnx"
     onnx.save(chain_model(n_ops), str(path))
-    t0 = time.perf_counter()
-    rc = main(["emit", str(path), "-o", str(workdir / f"out{n_ops}")])
-    emit_s = time.perf_counter() - t0
+    t0, c0 = time.perf_counter(), time.process_time()
+    with contextlib.redirect_stdout(io.StringIO()):  # emit's own summary line
+        rc = main(["emit", str(path), "-o", str(workdir / f"out{n_ops}")])
+    emit_s, emit_cpu = time.perf_counter() - t0, time.process_time() - c0
     if rc != 0:
         raise RuntimeError(f"emit of the {n_ops}-op chain failed (exit {rc})")
     c = compile_model(str(path), BuildOptions())
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     plan = plan_arena(c.graph, c.options)
-    plan_s = time.perf_counter() - t0
-    return {"ops": n_ops, "plan_s": plan_s, "emit_s": emit_s, "arena": plan.arena_bytes,
+    plan_s, plan_cpu = time.perf_counter() - t0, time.process_time() - c0
+    return {"ops": n_ops, "plan_s": plan_s, "plan_cpu": plan_cpu, "emit_s": emit_s,
+            "emit_cpu": emit_cpu, "arena": plan.arena_bytes,
             "lower_bound": plan.lower_bound, "planner": plan.planner}
 
 
@@ -83,9 +89,24 @@ def scale_table(lengths=SCALE_LENGTHS) -> str:
     with tempfile.TemporaryDirectory() as tmp:
         for n in lengths:
             rows.append(time_chain(n, Path(tmp)))
-    lines = ["| chain ops | plan s | emit s (load to C written) | arena B | lower bound B | "
-             "planner |", "|---:|---:|---:|---:|---:|---|"]
+    lines = ["| chain ops | plan s (CPU s) | emit s (CPU s), load to C written | arena B | "
+             "lower bound B | planner |", "|---:|---:|---:|---:|---:|---|"]
     for r in rows:
-        lines.append(f"| {r['ops']} | {r['plan_s']:.2f} | {r['emit_s']:.2f} | {r['arena']} | "
+        lines.append(f"| {r['ops']} | {r['plan_s']:.2f} ({r['plan_cpu']:.2f}) | "
+                     f"{r['emit_s']:.2f} ({r['emit_cpu']:.2f}) | {r['arena']} | "
                      f"{r['lower_bound']} | {r['planner']} |")
     return "\n".join(lines)
+
+
+def write_scale_table(out: Path, lengths=SCALE_LENGTHS) -> str:
+    """Measure and write the scale table as markdown to `out`; returns the text."""
+    text = ("# Scale: plan and emit time of long op chains\n\n"
+            "`python -m tinygen.bench --scale` (tinygen/bench_scale.py): QOperator chains of "
+            "1x1 QLinearConv, QLinearLeakyRelu and QLinearAdd with a skip of two, "
+            "[1, 4, 2, 2] uint8 tensors; one run each, one process, "
+            f"{platform.machine()} {platform.python_implementation()} "
+            f"{platform.python_version()}, default flags. Wall time on a shared machine; "
+            "CPU time of this process in brackets.\n\n" + scale_table(lengths) + "\n")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text(text)
+    return text
