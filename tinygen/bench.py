@@ -326,7 +326,13 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--out", default=str(ROOT / "bench" / "results.md"),
                     help="markdown output (default bench/results.md)")
     ap.add_argument("--no-speed", action="store_true", help="memory tables only")
+    ap.add_argument("--scale", action="store_true",
+                    help="plan and emit time of 1k/10k/100k-op chains (bench/scale.md)")
     args = ap.parse_args(argv)
+    if args.scale:
+        from tinygen.bench_scale import write_scale_table
+        print(write_scale_table(ROOT / "bench" / "scale.md"))
+        return 0
     models = [Path(m) for m in args.models] or example_models()
     text = run_bench(models, with_speed=not args.no_speed)
     out = Path(args.out)

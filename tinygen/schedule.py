@@ -1,15 +1,19 @@
 """Execution order of the ops: the given (topological) one, or one that lowers peak memory.
 
 The peak-minimising order is an exact dynamic programme over the sets of ops already run
-(memoised on the frontier), which is small for chains and modest branching; past
-`MAX_STATES` states it falls back to a greedy choice (the ready op that frees the most and
-allocates the least).
+(memoised on the frontier), which is small for chains and modest branching. Graphs of more
+than `MAX_EXACT_OPS` ops, or whose search passes `MAX_STATES` states, get a greedy order
+instead (the ready op that allocates least minus what it frees; ties: the lowest index),
+kept in a heap so it costs O(E log n) for E op-buffer uses.
 """
 from __future__ import annotations
+
+import heapq
 
 from tinygen.ir import Graph
 
 MAX_STATES = 20000
+MAX_EXACT_OPS = 200  # each DP state costs O(n); past this the greedy order is used
 
 
 def _deps(graph: Graph):
@@ -33,6 +37,8 @@ def order_ops(graph: Graph, how: str, buffer_of, size_of) -> list[int]:
     for i, u in enumerate(uses):
         for bname in u:
             users.setdefault(bname, set()).add(i)
+    if n > MAX_EXACT_OPS:
+        return greedy_order(n, deps, defines, uses, users, size_of)
     pinned = {buffer_of(io.name) for io in graph.outputs}
     inputs_live = {buffer_of(io.name) for io in graph.inputs}
 
@@ -76,21 +82,52 @@ def order_ops(graph: Graph, how: str, buffer_of, size_of) -> list[int]:
     try:
         return best(frozenset())[1]
     except (OverflowError, RecursionError):
-        return _greedy(n, deps, defines, uses, users, size_of)
+        return greedy_order(n, deps, defines, uses, users, size_of)
 
 
-def _greedy(n, deps, defines, uses, users, size_of) -> list[int]:
-    done: set[int] = set()
+def greedy_order(n, deps, defines, uses, users, size_of) -> list[int]:
+    """Repeatedly run the ready op with the smallest (bytes it defines - bytes of the
+    buffers it is the last user of), ties to the lowest index. Scores change only when a
+    buffer's users drop to one, so each ready op sits in a heap and is re-scored then."""
+    remaining = {b: len(us) for b, us in users.items()}
+    alloc = [sum(size_of(b) for b in defines[i] if b is not None) for i in range(n)]
+    waiting = [len(d) for d in deps]
+    dependents: list[list[int]] = [[] for _ in range(n)]
+    for i, d in enumerate(deps):
+        for j in d:
+            dependents[j].append(i)
+
+    def score(i: int) -> int:
+        freed = sum(size_of(b) for b in uses[i] if b is not None and remaining[b] == 1)
+        return alloc[i] - freed
+
+    current: dict[int, int] = {}  # ready op -> its score in the heap
+    heap: list[tuple[int, int]] = []
+
+    def push(i: int) -> None:
+        current[i] = score(i)
+        heapq.heappush(heap, (current[i], i))
+
+    for i in range(n):
+        if not waiting[i]:
+            push(i)
     order = []
-    while len(order) < n:
-        ready = [i for i in range(n) if i not in done and deps[i] <= done]
-
-        def score(i):
-            freed = sum(size_of(b) for b in uses[i]
-                        if b is not None and users.get(b, set()) <= done | {i})
-            return sum(size_of(b) for b in defines[i] if b is not None) - freed
-
-        i = min(ready, key=score)
-        done.add(i)
+    while heap:
+        sc, i = heapq.heappop(heap)
+        if current.get(i) != sc:
+            continue  # stale entry
+        del current[i]
         order.append(i)
+        for b in uses[i]:
+            if b is None:
+                continue
+            remaining[b] -= 1
+            if remaining[b] == 1:  # its last user now frees it
+                for j in users[b]:
+                    if j in current:
+                        push(j)
+        for j in dependents[i]:
+            waiting[j] -= 1
+            if not waiting[j]:
+                push(j)
     return order

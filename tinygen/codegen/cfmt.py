@@ -99,8 +99,10 @@ def c_array(name: str, data: np.ndarray, per_line: int = 16, static: bool = True
     """`static const T name[N] = {...};` with N >= 1."""
     data = np.asarray(data).reshape(-1)
     ctype = C_TYPES[data.dtype.name]
-    fmt = c_float if data.dtype == np.float32 else c_int
-    items = [fmt(v) for v in data] or ["0"]
+    if data.dtype == np.float32:
+        items = [c_float(v) for v in data] or ["0"]
+    else:  # whole-array str(): one Python call per element is most of a big model's emit
+        items = [c_int(v) if v == -(2**31) else str(v) for v in data.tolist()] or ["0"]
     lines = [", ".join(items[i:i + per_line]) for i in range(0, len(items), per_line)]
     body = ",\n    ".join(lines)
     return (f"{'static ' if static else ''}const {ctype} {name}[{max(len(items), 1)}] = "

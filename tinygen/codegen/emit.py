@@ -22,7 +22,7 @@ from tinygen.codegen.cfmt import (
     check_prefix,
 )
 from tinygen.codegen.output import write_tree  # noqa: F401 - its home before output.py
-from tinygen.compiler import Compiled
+from tinygen.compiler import Compiled, options_text
 from tinygen.errors import TinygenError
 from tinygen.ir import storage_perm
 from tinygen.kernels import KERNELS
@@ -278,18 +278,31 @@ def render_tree(c: Compiled, flags: str) -> dict[str, str]:
         check_prefix(c.options.prefix)
     except ValueError as exc:
         raise TinygenError(str(exc)) from None
-    w = TreeWriter(c, flags)
     env = _env()
-    ctx = w.context()  # renders calls first so the constants/families are known
-    ctx["const_bytes"] = w.pw.const_bytes
+    # The calls' C depends on the compiled model only, not on the flags line: compile_model
+    # renders once for the flash figure and emit again with the flags, so keep the context
+    # (for a 100,000-op model writing the calls is most of the time).
+    key = (id(c.graph), len(c.graph.ops), id(c.plan), options_text(c.options),
+           tuple(b.offset for b in c.plan.buffers.values()), tuple(c.plan.order))
+    cached = getattr(c, "_tree_context", None)
+    if cached is not None and cached[0] == key:
+        families, ctx = cached[1], dict(cached[2])
+        ctx["flags_comment"] = c_comment_text(flags, 200)
+    else:
+        w = TreeWriter(c, flags)
+        ctx = w.context()  # renders calls first so the constants/families are known
+        ctx["const_bytes"] = w.pw.const_bytes
+        families = w.families
+        c._tree_context = (key, families, ctx)
+    P = ctx["P"]
     files: dict[str, str] = {}
-    files[f"{w.P}.c"] = env.get_template("model.c.j2").render(**ctx)
-    files[f"{w.P}.h"] = env.get_template("model.h.j2").render(**ctx)
-    files.update(kernel_files(w.families))
+    files[f"{P}.c"] = env.get_template("model.c.j2").render(**ctx)
+    files[f"{P}.h"] = env.get_template("model.h.j2").render(**ctx)
+    files.update(kernel_files(families))
     from tinygen.codegen.folder import FolderModel
-    files.update(render_shared([FolderModel(w.P, sorted(w.families), ctx["needs"])],
+    files.update(render_shared([FolderModel(P, sorted(families), ctx["needs"])],
                                ctx["needs"]))
-    c.const_bytes = w.pw.const_bytes
+    c.const_bytes = ctx["const_bytes"]
     return files
 
 

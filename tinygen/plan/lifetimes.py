@@ -45,18 +45,33 @@ def build_buffers(graph: Graph, order: list[int], inplace: bool, io: str
     end = len(order)
     io_names = {io_.name for io_ in graph.inputs} | {io_.name for io_ in graph.outputs}
 
+    # per buffer, the last step any of its tensors is read, and whether one is graph I/O
+    # (kept as tensors join, so in-place chains stay linear)
+    read_until: dict[str, int] = {}
+    holds_io: set[str] = set()
+
     def new_buffer(t: str, first: int) -> None:
         buffers[t] = Buffer(t, tensors[t].nbytes, first, first, [t])
         owner[t] = t
+        read_until[t] = last_use.get(t, -1)
+        if t in io_names:
+            holds_io.add(t)
 
-    for i, io_ in enumerate(graph.inputs):
-        new_buffer(io_.name, -1)
-        if io == "external":
-            buffers[io_.name].external = f"input:{i}"
+    def join(t: str, name: str) -> None:
+        owner[t] = name
+        buffers[name].tensors.append(t)
+        read_until[name] = max(read_until[name], last_use.get(t, -1))
+        if t in io_names:
+            holds_io.add(name)
+
     last_use: dict[str, int] = {}
     for k in order:
         for t in graph.ops[k].inputs:
             last_use[t] = step_of[k]
+    for i, io_ in enumerate(graph.inputs):
+        new_buffer(io_.name, -1)
+        if io == "external":
+            buffers[io_.name].external = f"input:{i}"
     for k in order:
         op, s = graph.ops[k], step_of[k]
         for t in op.inputs:
@@ -68,9 +83,7 @@ def build_buffers(graph: Graph, order: list[int], inplace: bool, io: str
             buffers[name] = Buffer(name, scratch, s, s, [], scratch_of=k)
         out = op.outputs[0]
         if op.kind == "view":
-            src = owner[op.inputs[0]]
-            owner[out] = src
-            buffers[src].tensors.append(out)
+            join(out, owner[op.inputs[0]])
             continue
         target = None
         if inplace and op.kind in INPLACE_OK:
@@ -84,14 +97,13 @@ def build_buffers(graph: Graph, order: list[int], inplace: bool, io: str
                 same = (tensors[t].nbytes == tensors[out].nbytes
                         and tensors[t].shape == tensors[out].shape
                         and tensors[t].layout == tensors[out].layout)
-                alive_later = any(last_use.get(x, -1) > s for x in buf.tensors)
-                if same and not alive_later and not (set(buf.tensors) & io_names) \
+                alive_later = read_until[buf.name] > s
+                if same and not alive_later and buf.name not in holds_io \
                         and out not in io_names:
                     target = buf.name
                     break
         if target is not None:
-            owner[out] = target
-            buffers[target].tensors.append(out)
+            join(out, target)
             buffers[target].last = max(buffers[target].last, s)
         else:
             new_buffer(out, s)
@@ -118,10 +130,21 @@ def scratch_bytes(op) -> int:
     return int(KERNELS[call.func].scratch_bytes(call.params))
 
 
+def live_bytes_per_step(buffers: dict[str, Buffer], steps: int) -> list[int]:
+    """Bytes of arena buffers live at each step -1 .. steps (index s + 1), by a sweep over
+    the lifetimes' ends: O(buffers + steps)."""
+    delta = [0] * (steps + 3)
+    for b in buffers.values():
+        if b.external is None and b.first <= steps and b.last >= -1:
+            delta[max(b.first, -1) + 1] += b.size
+            delta[min(b.last, steps) + 2] -= b.size
+    live, total = [], 0
+    for d in delta[:-1]:
+        total += d
+        live.append(total)
+    return live
+
+
 def lower_bound(buffers: dict[str, Buffer], steps: int) -> int:
     """Largest total size of buffers live at one step (arena buffers only)."""
-    best = 0
-    for s in range(-1, steps + 1):
-        best = max(best, sum(b.size for b in buffers.values()
-                             if b.external is None and b.first <= s <= b.last))
-    return best
+    return max(live_bytes_per_step(buffers, steps), default=0)

@@ -22,7 +22,9 @@ a unless a is that scalar) and raw values (uint8 models: the unshifted uint8 val
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
+from types import SimpleNamespace
 
 import numpy as np
 
@@ -185,6 +187,19 @@ def add_tables(p: EltwiseParams) -> tuple[np.ndarray, np.ndarray] | None:
     """
     if p.use_float:
         return None
+    key = (int(p.a_zp), int(p.b_zp), int(p.left_shift), int(p.a_mult), int(p.a_shift),
+           int(p.b_mult), int(p.b_shift), int(p.out_mult), int(p.out_shift), int(p.out_zp),
+           int(p.act_min), int(p.act_max))
+    tables = _add_tables_of(key)
+    return None if tables is None else (tables[0].copy(), tables[1].copy())
+
+
+@functools.lru_cache(maxsize=4096)
+def _add_tables_of(key: tuple) -> tuple[np.ndarray, np.ndarray] | None:
+    """add_tables for one set of constants (many Adds of a model share them)."""
+    p = SimpleNamespace(**dict(zip(("a_zp", "b_zp", "left_shift", "a_mult", "a_shift",
+                                    "b_mult", "b_shift", "out_mult", "out_shift", "out_zp",
+                                    "act_min", "act_max"), key, strict=True)))
     s = int(p.out_shift)
     one = 1 << s
     v = _byte_values()
@@ -196,8 +211,10 @@ def add_tables(p: EltwiseParams) -> tuple[np.ndarray, np.ndarray] | None:
     qb, rb = zip(*(divmod(x, one) for x in b64), strict=True)
     rank = {val: i for i, val in enumerate(sorted(set(ra) | {one - r for r in rb}))}
     lo, hi = int(p.act_min), int(p.act_max)
-    qa = [min(max(q, lo - max(qb) - 2), hi - min(qb) + 1) for q in qa]
-    qb = [min(max(q, lo - max(qa) - 2), hi - min(qa) + 1) for q in qb]
+    qb_min, qb_max = min(qb), max(qb)  # bounds taken once, not per entry
+    qa = [min(max(q, lo - qb_max - 2), hi - qb_min + 1) for q in qa]
+    qa_min, qa_max = min(qa), max(qa)
+    qb = [min(max(q, lo - qa_max - 2), hi - qa_min + 1) for q in qb]
     if max(abs(q) for q in qa + qb) >= 1 << 19:
         return None
     k = 1 << ADD_TABLE_SHIFT
