@@ -16,8 +16,9 @@
  *   1 two neighbouring outputs take four MACs per word pair (SMLAD, SMLABT and SMLATB,
  *   SMLAD), with stride 2 one output takes an SMLAD and an SMLABT; the accumulators go
  *   straight to SMMLA/SSAT.
- * The widening on DSP cores takes four channels and two pixels per step (SXTAB16 subtracts
- * the zero point from two channels at once, PKHBT/PKHTB pair the pixels of one channel).
+ * The widening on DSP cores takes four channels and two pixels per step: PKHBT/PKHTB put
+ * the bytes of two channels of both pixels in one word, SXTAB16 widens the pixel pair of
+ * each channel and subtracts the zero point.
  * Accumulators are int32 and not checked: the compiler emits a convolution only when
  * |bias| + k_h*k_w*255*255 fits in int32.
  */
@@ -25,7 +26,14 @@
 
 #include <string.h>
 
-#if TG_DSP
+/* The DSP paths read a plane word's low half as the lower column: little-endian only. */
+#if TG_DSP && !defined(__ARM_BIG_ENDIAN)
+#define TG_DW_DSP 1
+#else
+#define TG_DW_DSP 0
+#endif
+
+#if TG_DW_DSP
 /* A word of two int16 plane columns; may_alias, as the same bytes are written as int16. */
 typedef uint32_t __attribute__((may_alias)) tg_dw_word_t;
 #endif
@@ -51,7 +59,7 @@ static void tg_dw_widen(const tg_dwconv_params_t *p, const int8_t *xr, int32_t c
     const int32_t first = p->pad_left < pw ? p->pad_left : pw;
     const int32_t cols = pw - first < p->in_w ? pw - first : p->in_w;
     int32_t j = 0, i;
-#if TG_DSP
+#if TG_DW_DSP
     int32_t q;
     const uint32_t off = (uint32_t)(uint16_t)(-zp) * 0x00010001u;
     for (; j + 4 <= nb; j += 4) {
@@ -65,17 +73,15 @@ static void tg_dw_widen(const tg_dwconv_params_t *p, const int8_t *xr, int32_t c
             i = 1;
         }
         for (; i + 2 <= cols; i += 2) {
-            uint32_t a, b, ae, ao, be, bo;
-            memcpy(&a, s + i * in_c, 4);
-            memcpy(&b, s + (i + 1) * in_c, 4);
-            ae = tg_widen_even(a, off);  /* channels 0, 2 of pixel i */
-            ao = tg_widen_odd(a, off);   /* channels 1, 3 */
-            be = tg_widen_even(b, off);
-            bo = tg_widen_odd(b, off);
-            *(tg_dw_word_t *)(void *)(d + i) = (ae & 0xFFFFu) | (be << 16);
-            *(tg_dw_word_t *)(void *)(d + pw + i) = (ao & 0xFFFFu) | (bo << 16);
-            *(tg_dw_word_t *)(void *)(d + 2 * pw + i) = (ae >> 16) | (be & 0xFFFF0000u);
-            *(tg_dw_word_t *)(void *)(d + 3 * pw + i) = (ao >> 16) | (bo & 0xFFFF0000u);
+            uint32_t a, b, lo, hi;
+            memcpy(&a, s + i * in_c, 4);      /* channels 0..3 of pixel i */
+            memcpy(&b, s + (i + 1) * in_c, 4);  /* and of pixel i + 1 */
+            lo = (a & 0xFFFFu) | (b << 16);     /* PKHBT: bytes a0 a1 b0 b1 */
+            hi = (a >> 16) | (b & 0xFFFF0000u); /* PKHTB: bytes a2 a3 b2 b3 */
+            *(tg_dw_word_t *)(void *)(d + i) = tg_widen_even(lo, off);
+            *(tg_dw_word_t *)(void *)(d + pw + i) = tg_widen_odd(lo, off);
+            *(tg_dw_word_t *)(void *)(d + 2 * pw + i) = tg_widen_even(hi, off);
+            *(tg_dw_word_t *)(void *)(d + 3 * pw + i) = tg_widen_odd(hi, off);
         }
         for (; i < cols; ++i) {
             for (q = 0; q < 4; ++q) {
@@ -170,7 +176,7 @@ static void tg_dw_put_row(const tg_dwconv_params_t *p, const int32_t *acc, int32
     }
 }
 
-#if TG_DSP
+#if TG_DW_DSP
 /* Requantize one fast-form accumulator; full: the int8 range is the whole clamp, pre 0. */
 TG_INLINE int32_t tg_dw_out(tg_rq_chan_t k, int32_t acc, int32_t pre, int32_t lo, int32_t hi,
                             int full)
@@ -258,6 +264,91 @@ TG_INLINE void tg_dw3_row(const tg_dw_word_t *r0, const tg_dw_word_t *r1,
     }
 }
 
+/* What the assembly routines read (offsets 0..24 on 32-bit Arm). */
+typedef struct {
+    const tg_dw_word_t *row[3];  /* the three plane rows, word pointers at column 0 */
+    const int32_t *rec;          /* the channel's record in the pack */
+    int8_t *y;                   /* output 0 of the row */
+    int32_t ys;                  /* bytes from one output to the next (out_c) */
+    int32_t pairs;               /* output pairs, >= 1 */
+} tg_dw3_job_t;
+
+void tg_dw3_dsp_s1(const tg_dw3_job_t *job);
+void tg_dw3_dsp_s2(const tg_dw3_job_t *job);
+
+/* Output pairs of one row, fast requant without pre-shift or clamp beyond int8. Registers:
+ * r0, r1 the two sums, r2, r3 plane words, r4, r5 one kernel row's weight pairs
+ * ((w0, w1), (w1, w2)), r6-r8 the plane rows, r9 the record (bias at 0, pairs at 4, 16,
+ * 28, mult/add/r at 40), r10 y, r11 its step, r12 pairs left, lr the bias.
+ * Stride 1, outputs ox, ox+1, u = columns (ox, ox+1), v = (ox+2, ox+3):
+ *   e += u.(w0,w1) + v.lo*w2   (SMLAD, SMLABT)   o += u.hi*w0 + v.(w1,w2)   (SMLATB, SMLAD)
+ * Stride 2, outputs ox, ox+1, u, v, t = columns from 2ox:
+ *   e += u.(w0,w1) + v.lo*w2   o += v.(w0,w1) + t.lo*w2 */
+__asm__(
+    ".syntax unified\n"
+    ".macro tg_dw3_rows2 ptr, off\n"       /* one kernel row, stride 1 */
+    "    ldrd    r4, r5, [r9, #\\off]\n"
+    "    ldr     r2, [\\ptr], #4\n"
+    "    ldr     r3, [\\ptr]\n"
+    "    smlad   r0, r2, r4, r0\n"
+    "    smlatb  r1, r2, r4, r1\n"
+    "    smlabt  r0, r3, r5, r0\n"
+    "    smlad   r1, r3, r5, r1\n"
+    ".endm\n"
+    ".macro tg_dw3_rows2s ptr, off\n"      /* one kernel row, stride 2 */
+    "    ldrd    r4, r5, [r9, #\\off]\n"
+    "    ldr     r2, [\\ptr], #8\n"
+    "    ldr     r3, [\\ptr, #-4]\n"
+    "    smlad   r0, r2, r4, r0\n"
+    "    smlad   r1, r3, r4, r1\n"
+    "    smlabt  r0, r3, r5, r0\n"
+    "    ldr     r2, [\\ptr]\n"
+    "    smlabt  r1, r2, r5, r1\n"
+    ".endm\n"
+    ".macro tg_dw3_dsp name, row\n"
+    ".pushsection .text.\\name,\"ax\",%progbits\n"
+    ".balign 4\n"
+    ".type \\name, %function\n"
+    ".thumb\n"
+    ".thumb_func\n"
+    "\\name:\n"
+    "    push    {r4-r11, lr}\n"
+    "    ldr     r6, [r0, #0]\n"
+    "    ldr     r7, [r0, #4]\n"
+    "    ldr     r8, [r0, #8]\n"
+    "    ldr     r9, [r0, #12]\n"
+    "    ldr     r10, [r0, #16]\n"
+    "    ldr     r11, [r0, #20]\n"
+    "    ldr     r12, [r0, #24]\n"
+    "    ldr     lr, [r9]\n"
+    "1:  mov     r0, lr\n"
+    "    mov     r1, lr\n"
+    "    \\row   r6, 4\n"
+    "    \\row   r7, 16\n"
+    "    \\row   r8, 28\n"
+    "    ldrd    r2, r3, [r9, #40]\n"
+    "    ldr     r4, [r9, #48]\n"
+    "    smmla   r0, r0, r2, r3\n"
+    "    asr     r0, r0, r4\n"
+    "    ssat    r0, #8, r0\n"
+    "    smmla   r1, r1, r2, r3\n"
+    "    asr     r1, r1, r4\n"
+    "    ssat    r1, #8, r1\n"
+    "    strb    r0, [r10]\n"
+    "    strb    r1, [r10, r11]\n"
+    "    add     r10, r10, r11, lsl #1\n"
+    "    subs    r12, r12, #1\n"
+    "    bne     1b\n"
+    "    pop     {r4-r11, pc}\n"
+    ".size \\name, .-\\name\n"
+    ".popsection\n"
+    ".endm\n"
+    "tg_dw3_dsp tg_dw3_dsp_s1, tg_dw3_rows2\n"
+    "tg_dw3_dsp tg_dw3_dsp_s2, tg_dw3_rows2s\n"
+    ".purgem tg_dw3_dsp\n"
+    ".purgem tg_dw3_rows2\n"
+    ".purgem tg_dw3_rows2s\n");
+
 /* tg_dw3_row for both strides, specialised for the full int8 clamp without pre-shift. */
 static void tg_dw3_row_any(const tg_dwconv_params_t *p, const int16_t *planes, int32_t r,
                            int32_t j, const int32_t *rec, int8_t *y)
@@ -268,10 +359,25 @@ static void tg_dw3_row_any(const tg_dwconv_params_t *p, const int16_t *planes, i
     const tg_requant_t *rq = p->rq;
     const int32_t ys = p->out_c, ow = p->out_w;
     if (rq->pre == 0 && rq->act_min == -128 && rq->act_max == 127) {
-        if (p->stride_w == 1) {
-            tg_dw3_row(r0, r1, r2, rec, rq, y, ys, ow, 1, 1);
-        } else {
-            tg_dw3_row(r0, r1, r2, rec, rq, y, ys, ow, 2, 1);
+        const int32_t s = p->stride_w, done = ow & ~1;
+        if (done != 0) {  /* the pairs in assembly, a lone last output below */
+            tg_dw3_job_t job;
+            job.row[0] = r0;
+            job.row[1] = r1;
+            job.row[2] = r2;
+            job.rec = rec;
+            job.y = y;
+            job.ys = ys;
+            job.pairs = ow >> 1;
+            if (s == 1) {
+                tg_dw3_dsp_s1(&job);
+            } else {
+                tg_dw3_dsp_s2(&job);
+            }
+        }
+        if (done != ow) {
+            tg_dw3_row(r0 + done / 2 * s, r1 + done / 2 * s, r2 + done / 2 * s, rec, rq,
+                       y + done * ys, ys, 1, s, 1);
         }
     } else if (p->stride_w == 1) {
         tg_dw3_row(r0, r1, r2, rec, rq, y, ys, ow, 1, 0);
@@ -291,7 +397,7 @@ void tg_dwconv(const tg_dwconv_params_t *p, const int8_t *x, void *y, void *scra
     const int32_t images = row0 == 0 && row1 == p->out_h ? p->n : 1;
     int16_t *planes = (int16_t *)scratch;
     int32_t *acc = (int32_t *)(void *)(planes + (sp * block + 1) * pw);
-#if TG_DSP
+#if TG_DW_DSP
     const int fused = p->rq != NULL && p->rq->form == TG_RQ_FAST && p->k_h == 3
                       && p->k_w == 3 && p->dil_w == 1 && (p->stride_w == 1 || p->stride_w == 2);
 #endif
@@ -317,7 +423,7 @@ void tg_dwconv(const tg_dwconv_params_t *p, const int8_t *x, void *y, void *scra
                     for (m = 0; m < multiplier; ++m) {
                         const int32_t oc = (c0 + j) * multiplier + m;
                         const int32_t *rec = p->pack + oc * rw;
-#if TG_DSP
+#if TG_DW_DSP
                         if (fused) {
                             tg_dw3_row_any(p, planes, r, j, rec, yr + oc);
                             continue;

@@ -63,11 +63,12 @@ def axis(rng, k: int | None = None, stride: int | None = None, dil: int | None =
                 out=conv_output_size(size, k, stride, dil, begin, end))
 
 
-def make_case(seed: int, shape: str = "random"):
+def make_case(seed: int, shape: str = "random", plain_fast: bool = False):
     """One case. shape "3x3s1"/"3x3s2": the DSP path's geometry (pads 0 or 1, any size),
-    else random kernel, stride, dilation and pads; the seed cycles the requant modes."""
+    else random kernel, stride, dilation and pads; the seed cycles the requant modes.
+    plain_fast: fast requant clamped to the int8 range only (the assembly's case)."""
     rng = np.random.default_rng(seed)
-    mode = MODES[seed % len(MODES)]
+    mode = "fast" if plain_fast else MODES[seed % len(MODES)]
     if shape == "random":
         h = axis(rng) if seed % 5 else dict(size=1, k=1, stride=1, dil=1, begin=0, out=1)
         w_ax = axis(rng)
@@ -85,6 +86,8 @@ def make_case(seed: int, shape: str = "random"):
         lo, hi = (out_zp, 127) if rng.random() < 0.3 else (-128, 127)
         if rng.random() < 0.15:
             lo, hi = -100, 90  # a clip narrower than int8 on both sides
+        if plain_fast:
+            lo, hi = -128, 127
         scales = 10.0 ** rng.uniform(-5, -1, size=out_c)
         rq = make_requant(scales, out_zp, lo, hi, "float" if mode == "float" else "fixed")
         if mode != "float":
@@ -256,6 +259,10 @@ def target_cases():
     cases = [make_case(seed) for seed in range(0, 24)]
     cases += [make_case(seed, "3x3s1") for seed in range(12)]
     cases += [make_case(seed, "3x3s2") for seed in range(12)]
+    cases += [make_case(seed, shape, plain_fast=True) for seed in range(30, 42)
+              for shape in ("3x3s1", "3x3s2")]
+    assert sum(p.rq is not None and p.rq.form == FORM_FAST and p.rq.pre == 0
+               for p, *_ in cases[-24:]) >= 20
     return cases
 
 
