@@ -38,6 +38,13 @@
 typedef uint32_t __attribute__((may_alias)) tg_dw_word_t;
 #endif
 
+/* GNU C's noinline: loops gcc -Os would spill when inlined into the row walk. */
+#if defined(__GNUC__)
+#define TG_DW_NOINLINE __attribute__((noinline))
+#else
+#define TG_DW_NOINLINE
+#endif
+
 static int32_t tg_dw_span(const tg_dwconv_params_t *p)
 {
     return (p->k_h - 1) * p->dil_h + 1;
@@ -52,7 +59,7 @@ static inline int32_t tg_dw_low(int32_t word)
 /* Input row xr, channels [c0, c0 + nb), into nb planes (plane_w int16 apart): plane
  * column pad_left + i = x[i] - in_zp for the input columns a plane holds. The padding
  * columns are never written (zero from the start of the call). */
-static void tg_dw_widen(const tg_dwconv_params_t *p, const int8_t *xr, int32_t c0, int32_t nb,
+static TG_DW_NOINLINE void tg_dw_widen(const tg_dwconv_params_t *p, const int8_t *xr, int32_t c0, int32_t nb,
                         int16_t *planes)
 {
     const int32_t pw = p->plane_w, in_c = p->in_c, zp = p->in_zp;
@@ -72,16 +79,38 @@ static void tg_dw_widen(const tg_dwconv_params_t *p, const int8_t *xr, int32_t c
             }
             i = 1;
         }
-        for (; i + 2 <= cols; i += 2) {
-            uint32_t a, b, lo, hi;
-            memcpy(&a, s + i * in_c, 4);      /* channels 0..3 of pixel i */
-            memcpy(&b, s + (i + 1) * in_c, 4);  /* and of pixel i + 1 */
-            lo = (a & 0xFFFFu) | (b << 16);     /* PKHBT: bytes a0 a1 b0 b1 */
-            hi = (a >> 16) | (b & 0xFFFF0000u); /* PKHTB: bytes a2 a3 b2 b3 */
-            *(tg_dw_word_t *)(void *)(d + i) = tg_widen_even(lo, off);
-            *(tg_dw_word_t *)(void *)(d + pw + i) = tg_widen_odd(lo, off);
-            *(tg_dw_word_t *)(void *)(d + 2 * pw + i) = tg_widen_even(hi, off);
-            *(tg_dw_word_t *)(void *)(d + 3 * pw + i) = tg_widen_odd(hi, off);
+        if (i + 2 <= cols) {
+            /* pixel pairs: bytes a0 a1 b0 b1 and a2 a3 b2 b3 (PKHBT, PKHTB), each widened
+             * into the (pixel i, pixel i + 1) words of two channels (SXTAB16) */
+            const int8_t *src = s + i * in_c;
+            tg_dw_word_t *d0 = (tg_dw_word_t *)(void *)(d + i);
+            tg_dw_word_t *d1 = (tg_dw_word_t *)(void *)(d + pw + i);
+            tg_dw_word_t *d2 = (tg_dw_word_t *)(void *)(d + 2 * pw + i);
+            tg_dw_word_t *d3 = (tg_dw_word_t *)(void *)(d + 3 * pw + i);
+            int32_t n = (cols - i) >> 1;
+            uint32_t va, vb, lo;
+            i += 2 * n;
+            __asm__ volatile(
+                "1:\n\t"
+                "ldr     %[a], [%[s]]\n\t"
+                "ldr     %[b], [%[s], %[c]]\n\t"
+                "add     %[s], %[s], %[c], lsl #1\n\t"
+                "pkhbt   %[lo], %[a], %[b], lsl #16\n\t"
+                "pkhtb   %[b], %[b], %[a], asr #16\n\t"
+                "sxtab16 %[a], %[off], %[lo]\n\t"
+                "str     %[a], [%[d0]], #4\n\t"
+                "sxtab16 %[a], %[off], %[lo], ror #8\n\t"
+                "str     %[a], [%[d1]], #4\n\t"
+                "sxtab16 %[a], %[off], %[b]\n\t"
+                "str     %[a], [%[d2]], #4\n\t"
+                "sxtab16 %[a], %[off], %[b], ror #8\n\t"
+                "str     %[a], [%[d3]], #4\n\t"
+                "subs    %[n], %[n], #1\n\t"
+                "bne     1b"
+                : [a] "=&r"(va), [b] "=&r"(vb), [lo] "=&r"(lo), [s] "+r"(src), [n] "+r"(n),
+                  [d0] "+r"(d0), [d1] "+r"(d1), [d2] "+r"(d2), [d3] "+r"(d3)
+                : [c] "r"(in_c), [off] "r"(off)
+                : "cc", "memory");
         }
         for (; i < cols; ++i) {
             for (q = 0; q < 4; ++q) {
@@ -113,7 +142,7 @@ static const int16_t *tg_dw_tap_row(const tg_dwconv_params_t *p, const int16_t *
 
 /* acc[ox] = the accumulator of output (r, ox) of the channel whose record is rec and whose
  * input is channel j of the block: any kernel size, stride and dilation. */
-static void tg_dw_accumulate(const tg_dwconv_params_t *p, const int16_t *planes, int32_t r,
+static TG_DW_NOINLINE void tg_dw_accumulate(const tg_dwconv_params_t *p, const int16_t *planes, int32_t r,
                              int32_t j, const int32_t *rec, int32_t *acc)
 {
     const int32_t ow = p->out_w, sw = p->stride_w;
@@ -264,13 +293,15 @@ TG_INLINE void tg_dw3_row(const tg_dw_word_t *r0, const tg_dw_word_t *r1,
     }
 }
 
-/* What the assembly routines read (offsets 0..24 on 32-bit Arm). */
+/* What the assembly routines read and advance (offsets 0..40 on 32-bit Arm). */
 typedef struct {
-    const tg_dw_word_t *row[3];  /* the three plane rows, word pointers at column 0 */
+    const tg_dw_word_t *row[3];  /* the three plane rows of the channel, at column 0 */
+    int32_t step[3];             /* bytes to the next channel's rows (0: the zero row) */
     const int32_t *rec;          /* the channel's record in the pack */
-    int8_t *y;                   /* output 0 of the row */
+    int8_t *y;                   /* its output 0 of the row */
     int32_t ys;                  /* bytes from one output to the next (out_c) */
-    int32_t pairs;               /* output pairs, >= 1 */
+    int32_t pairs;               /* output pairs per channel, >= 1 */
+    int32_t channels;            /* channels left, >= 1 */
 } tg_dw3_job_t;
 
 void tg_dw3_dsp_s1(const tg_dw3_job_t *job);
@@ -279,7 +310,8 @@ void tg_dw3_dsp_s2(const tg_dw3_job_t *job);
 /* Output pairs of one row, fast requant without pre-shift or clamp beyond int8. Registers:
  * r0, r1 the two sums, r2, r3 plane words, r4, r5 one kernel row's weight pairs
  * ((w0, w1), (w1, w2)), r6-r8 the plane rows, r9 the record (bias at 0, pairs at 4, 16,
- * 28, mult/add/r at 40), r10 y, r11 its step, r12 pairs left, lr the bias.
+ * 28, mult/add/r at 40), r10 y, r11 its step, r12 pairs left, lr the bias; [sp] the job,
+ * whose rows, record and y move on to the next channel after each row.
  * Stride 1, outputs ox, ox+1, u = columns (ox, ox+1), v = (ox+2, ox+3):
  *   e += u.(w0,w1) + v.lo*w2   (SMLAD, SMLABT)   o += u.hi*w0 + v.(w1,w2)   (SMLATB, SMLAD)
  * Stride 2, outputs ox, ox+1, u, v, t = columns from 2ox:
@@ -312,14 +344,13 @@ __asm__(
     ".thumb\n"
     ".thumb_func\n"
     "\\name:\n"
-    "    push    {r4-r11, lr}\n"
-    "    ldr     r6, [r0, #0]\n"
-    "    ldr     r7, [r0, #4]\n"
-    "    ldr     r8, [r0, #8]\n"
-    "    ldr     r9, [r0, #12]\n"
-    "    ldr     r10, [r0, #16]\n"
-    "    ldr     r11, [r0, #20]\n"
-    "    ldr     r12, [r0, #24]\n"
+    "    push    {r0, r4-r11, lr}\n"
+    "0:  ldr     r0, [sp]\n"
+    "    ldmia   r0, {r6-r8}\n"
+    "    ldr     r9, [r0, #24]\n"
+    "    ldr     r10, [r0, #28]\n"
+    "    ldr     r11, [r0, #32]\n"
+    "    ldr     r12, [r0, #36]\n"
     "    ldr     lr, [r9]\n"
     "1:  mov     r0, lr\n"
     "    mov     r1, lr\n"
@@ -339,7 +370,20 @@ __asm__(
     "    add     r10, r10, r11, lsl #1\n"
     "    subs    r12, r12, #1\n"
     "    bne     1b\n"
-    "    pop     {r4-r11, pc}\n"
+    "    ldr     r0, [sp]\n"
+    "    ldmia   r0, {r1-r8}\n"
+    "    add     r1, r1, r4\n"
+    "    add     r2, r2, r5\n"
+    "    add     r3, r3, r6\n"
+    "    add     r7, r7, #52\n"
+    "    add     r8, r8, #1\n"
+    "    stmia   r0, {r1-r3}\n"
+    "    strd    r7, r8, [r0, #24]\n"
+    "    ldr     r1, [r0, #40]\n"
+    "    subs    r1, r1, #1\n"
+    "    str     r1, [r0, #40]\n"
+    "    bne     0b\n"
+    "    pop     {r0, r4-r11, pc}\n"
     ".size \\name, .-\\name\n"
     ".popsection\n"
     ".endm\n"
@@ -349,40 +393,49 @@ __asm__(
     ".purgem tg_dw3_rows2\n"
     ".purgem tg_dw3_rows2s\n");
 
-/* tg_dw3_row for both strides, specialised for the full int8 clamp without pre-shift. */
-static void tg_dw3_row_any(const tg_dwconv_params_t *p, const int16_t *planes, int32_t r,
-                           int32_t j, const int32_t *rec, int8_t *y)
+/* Output row r of the block's channels [c0, c0 + nb) (multiplier 1) into row yr: the
+ * output pairs in assembly when the requantization is the plain fast form, the rest (a
+ * lone last output, or every output under a pre-shift or a narrower clamp) in C. Channel
+ * j's plane rows are j*plane_w on from channel 0's; the zero row serves every channel. */
+static TG_DW_NOINLINE void tg_dw3_block(const tg_dwconv_params_t *p, const int16_t *planes,
+                                        int32_t r, int32_t c0, int32_t nb, int8_t *yr)
 {
-    const tg_dw_word_t *r0 = (const tg_dw_word_t *)(const void *)tg_dw_tap_row(p, planes, r, 0, j);
-    const tg_dw_word_t *r1 = (const tg_dw_word_t *)(const void *)tg_dw_tap_row(p, planes, r, 1, j);
-    const tg_dw_word_t *r2 = (const tg_dw_word_t *)(const void *)tg_dw_tap_row(p, planes, r, 2, j);
     const tg_requant_t *rq = p->rq;
-    const int32_t ys = p->out_c, ow = p->out_w;
-    if (rq->pre == 0 && rq->act_min == -128 && rq->act_max == 127) {
-        const int32_t s = p->stride_w, done = ow & ~1;
-        if (done != 0) {  /* the pairs in assembly, a lone last output below */
-            tg_dw3_job_t job;
-            job.row[0] = r0;
-            job.row[1] = r1;
-            job.row[2] = r2;
-            job.rec = rec;
-            job.y = y;
-            job.ys = ys;
-            job.pairs = ow >> 1;
-            if (s == 1) {
-                tg_dw3_dsp_s1(&job);
-            } else {
-                tg_dw3_dsp_s2(&job);
-            }
+    const int16_t *zero = planes + tg_dw_span(p) * p->block * p->plane_w;
+    const int32_t rw = 1 + 9 + 3, ow = p->out_w, s = p->stride_w, ys = p->out_c;
+    const int plain = rq->pre == 0 && rq->act_min == -128 && rq->act_max == 127;
+    const int32_t done = plain ? ow & ~1 : 0, skip = done / 2 * s;
+    const tg_dw_word_t *rows[3];
+    int32_t j, k;
+    tg_dw3_job_t job;
+    for (k = 0; k < 3; ++k) {
+        const int16_t *row = tg_dw_tap_row(p, planes, r, k, 0);
+        rows[k] = (const tg_dw_word_t *)(const void *)row;
+        job.row[k] = rows[k];
+        job.step[k] = row == zero ? 0 : 2 * p->plane_w;  /* bytes */
+    }
+    if (done != 0) {  /* every channel's output pairs */
+        job.rec = p->pack + c0 * rw;
+        job.y = yr + c0;
+        job.ys = ys;
+        job.pairs = ow >> 1;
+        job.channels = nb;
+        if (s == 1) {
+            tg_dw3_dsp_s1(&job);
+        } else {
+            tg_dw3_dsp_s2(&job);
         }
-        if (done != ow) {
-            tg_dw3_row(r0 + done / 2 * s, r1 + done / 2 * s, r2 + done / 2 * s, rec, rq,
-                       y + done * ys, ys, 1, s, 1);
+    }
+    if (done == ow) {
+        return;
+    }
+    for (j = 0; j < nb; ++j) {
+        const int32_t *rec = p->pack + (c0 + j) * rw;
+        const tg_dw_word_t *q[3];
+        for (k = 0; k < 3; ++k) {
+            q[k] = rows[k] + skip + (job.step[k] ? j * p->plane_w / 2 : 0);
         }
-    } else if (p->stride_w == 1) {
-        tg_dw3_row(r0, r1, r2, rec, rq, y, ys, ow, 1, 0);
-    } else {
-        tg_dw3_row(r0, r1, r2, rec, rq, y, ys, ow, 2, 0);
+        tg_dw3_row(q[0], q[1], q[2], rec, rq, yr + c0 + j + done * ys, ys, ow - done, s, 0);
     }
 }
 #endif
@@ -399,7 +452,8 @@ void tg_dwconv(const tg_dwconv_params_t *p, const int8_t *x, void *y, void *scra
     int32_t *acc = (int32_t *)(void *)(planes + (sp * block + 1) * pw);
 #if TG_DW_DSP
     const int fused = p->rq != NULL && p->rq->form == TG_RQ_FAST && p->k_h == 3
-                      && p->k_w == 3 && p->dil_w == 1 && (p->stride_w == 1 || p->stride_w == 2);
+                      && p->k_w == 3 && p->dil_w == 1 && (p->stride_w == 1 || p->stride_w == 2)
+                      && multiplier == 1;
 #endif
     int32_t c0, b, r, j, m;
     memset(planes, 0, (size_t)(2 * pw * (sp * block + 1)));  /* padding columns, zero row */
@@ -419,16 +473,16 @@ void tg_dwconv(const tg_dwconv_params_t *p, const int8_t *x, void *y, void *scra
                                 planes + (iy % sp) * block * pw);
                 }
                 next = iy > next ? iy : next;
+#if TG_DW_DSP
+                if (fused) {
+                    tg_dw3_block(p, planes, r, c0, nb, yr);
+                    continue;
+                }
+#endif
                 for (j = 0; j < nb; ++j) {
                     for (m = 0; m < multiplier; ++m) {
                         const int32_t oc = (c0 + j) * multiplier + m;
                         const int32_t *rec = p->pack + oc * rw;
-#if TG_DW_DSP
-                        if (fused) {
-                            tg_dw3_row_any(p, planes, r, j, rec, yr + oc);
-                            continue;
-                        }
-#endif
                         tg_dw_accumulate(p, planes, r, j, rec, acc);
                         tg_dw_put_row(p, acc, oc, rec, yr);
                     }
