@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from tinygen.reference import conv as ref_conv
+from tinygen.reference import dwconv as ref_dwconv
 from tinygen.reference import eltwise as ref_eltwise
 from tinygen.reference import fc as ref_fc
 from tinygen.reference import lut as ref_lut
@@ -72,6 +73,11 @@ def _pwconv_ref(p, x):
     return ref_pwconv.pwconv(x.reshape(p.n, p.in_h, p.in_w, p.in_c), p.w, p.bias, p)
 
 
+def _dwconv_ref(p, x):
+    """tg_dwconv reads its weights from p.pack; the reference takes p.w and p.bias."""
+    return ref_dwconv.dwconv(x.reshape(p.n, p.in_h, p.in_w, p.in_c), p.w, p.bias, p)
+
+
 def _elementwise_steps(p, *_):
     """Element i read and written at step i (tg_lut, tg_add/tg_mul with dense inputs)."""
     n = int(np.prod(p.shape)) if hasattr(p, "shape") else int(p.count)
@@ -86,7 +92,8 @@ KERNELS: dict[str, Kernel] = {
                         scratch_bytes=ref_pwconv.scratch_bytes,
                         overlap_margin=ref_pwconv.overlap_margin,
                         access_steps=ref_pwconv.access_steps),
-    "tg_dwconv": Kernel("conv", "tg_conv_params_t", _conv_ref(ref_conv.dwconv)),
+    "tg_dwconv": Kernel("dwconv", "tg_dwconv_params_t", _dwconv_ref, rows=True,
+                        scratch_bytes=ref_dwconv.scratch_bytes),
     "tg_fc": Kernel("fc", "tg_fc_params_t", _fc_ref),
     "tg_maxpool": Kernel("pool", "tg_pool_params_t", lambda p, x: ref_pool.maxpool(
         p, x.reshape(p.n, p.in_h, p.in_w, p.c))),

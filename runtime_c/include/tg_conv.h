@@ -11,8 +11,8 @@
  * aligned, 4*k_h + 6*((k_len + 3) & ~3) bytes with k_len = k_h*k_w*in_c/groups
  * (tinygen.reference.conv.conv_scratch_bytes). tg_conv takes its weights, bias and fast
  * requantization constants from pack, the blocked matrix core's layout (tg_mat.h) with
- * k_len per row and ceil(out_c/groups / 2) records per group; tg_dwconv takes w and bias
- * (pack NULL).
+ * k_len per row and ceil(out_c/groups / 2) records per group. Depthwise convolution is
+ * tg_dwconv (tg_dwconv.h).
  */
 #ifndef TG_CONV_H
 #define TG_CONV_H
@@ -37,9 +37,5 @@ typedef struct {
 /* General grouped convolution (groups == 1 included). */
 void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
              int32_t row0, int32_t row1);
-
-/* Depthwise: groups == in_c, out_c = in_c * multiplier; w is [out_c][k_h][k_w][1]. */
-void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
-               const int32_t *bias, void *y);
 
 #endif /* TG_CONV_H */

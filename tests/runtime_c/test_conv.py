@@ -1,4 +1,4 @@
-"""tg_conv / tg_dwconv (C, through cffi) against tinygen.reference.conv, bit for bit, and the
+"""tg_conv (C, through cffi) against tinygen.reference.conv, bit for bit, and the
 reference itself against onnx.reference (ConvInteger) and onnxruntime (QLinearConv)."""
 from __future__ import annotations
 
@@ -30,7 +30,6 @@ from tinygen.reference.conv import (
     conv_accumulators,
     conv_output_size,
     conv_scratch_bytes,
-    dwconv,
     with_conv_pack,
 )
 from tinygen.reference.requant import make_requant, mul_shift
@@ -53,8 +52,6 @@ typedef struct {
 } tg_conv_params_t;
 void tg_conv(const tg_conv_params_t *p, const int8_t *x, void *y, void *scratch,
              int32_t row0, int32_t row1);
-void tg_dwconv(const tg_conv_params_t *p, const int8_t *x, const int8_t *w,
-               const int32_t *bias, void *y);
 """
 
 SCALAR_FIELDS = ("n", "in_h", "in_w", "in_c", "out_h", "out_w", "out_c", "k_h", "k_w",
@@ -65,22 +62,18 @@ RQ_MODES = ("fixed", "float", "int32")
 
 
 def run_c_conv(kernel: str, x, w, bias, p: ConvParams) -> np.ndarray:
-    """Run tg_conv or tg_dwconv on numpy arrays; int8 output with p.rq, else int32."""
+    """Run tg_conv on numpy arrays; int8 output with p.rq, else int32."""
     ffi, lib = kernel_lib(["tg_conv.c"], REQUANT_CDEF + CONV_CDEF)
     m = Marshal(ffi)
-    with_conv_pack(p, w, bias)  # what tg_conv reads; tg_dwconv takes w and bias
+    with_conv_pack(p, w, bias)  # what tg_conv reads
     params = m.struct("tg_conv_params_t", **{f: int(getattr(p, f)) for f in SCALAR_FIELDS},
                       w_zp=m.optional_array(p.w_zp, np.int32, "int32_t"), rq=m.requant(p.rq),
                       pack=m.array(p.pack, np.int32, "int32_t"))
     y, y_ptr = m.output((p.n, p.out_h, p.out_w, p.out_c),
                         np.int32 if p.rq is None else np.int8)
-    if kernel == "tg_conv":  # the row-range call (DEVELOPERS.md, "Kernel calls")
-        args = [params, m.array(x, np.int8, "int8_t"), y_ptr,
-                m.scratch(conv_scratch_bytes(p)), 0, p.out_h]
-    else:
-        args = [params, m.array(x, np.int8, "int8_t"), m.array(w, np.int8, "int8_t"),
-                m.array(bias, np.int32, "int32_t"), y_ptr]
-    getattr(lib, kernel)(*args)
+    # the row-range call (DEVELOPERS.md, "Kernel calls")
+    getattr(lib, kernel)(params, m.array(x, np.int8, "int8_t"), y_ptr,
+                         m.scratch(conv_scratch_bytes(p)), 0, p.out_h)
     return y
 
 
@@ -149,9 +142,6 @@ def test_c_conv_matches_reference(seed):
     p, x, w, bias = random_case(seed)
     expected = conv(x, w, bias, p)
     np.testing.assert_array_equal(run_c_conv("tg_conv", x, w, bias, p), expected)
-    if p.groups == p.in_c:
-        np.testing.assert_array_equal(run_c_conv("tg_dwconv", x, w, bias, p), expected)
-        np.testing.assert_array_equal(dwconv(x, w, bias, p), expected)
 
 
 def test_cases_cover_saturation_and_features():
@@ -436,9 +426,7 @@ def conv_case_c(tag: str, p: ConvParams, x, w, bias) -> tuple[str, list[str]]:
     rq_def, rq_expr = c_requant(f"{tag}_rq", p.rq)
     with_conv_pack(p, w, bias)
     fields = ", ".join(str(int(getattr(p, f))) for f in SCALAR_FIELDS)
-    wb = (c_array(f"{tag}_w", "int8_t", w) + c_array(f"{tag}_bias", "int32_t", bias)
-          if p.groups == p.in_c else "")  # tg_dwconv's arguments; tg_conv reads the pack
-    defs = (c_array(f"{tag}_x", "int8_t", x) + wb + c_array(f"{tag}_pack", "int32_t", p.pack)
+    defs = (c_array(f"{tag}_x", "int8_t", x) + c_array(f"{tag}_pack", "int32_t", p.pack)
             + w_zp_def + rq_def
             + f"static const tg_conv_params_t {tag}_p = {{{fields}, {w_zp_expr}, {rq_expr}, "
               f"0, 0, {tag}_pack}};\n")
@@ -447,9 +435,6 @@ def conv_case_c(tag: str, p: ConvParams, x, w, bias) -> tuple[str, list[str]]:
     # scratch 4 bytes into an int64 array: 4-byte aligned, not 8 (the least the plan gives)
     calls = [f"tg_conv(&{tag}_p, {tag}_x, y, (int32_t *)scratch + 1, 0, {p.out_h}); "
              f"tg_test_dump(\"{tag}_tg_conv\", y, {out_bytes});"]
-    if p.groups == p.in_c:
-        calls.append(f"tg_dwconv(&{tag}_p, {tag}_x, {tag}_w, {tag}_bias, y); "
-                     f"tg_test_dump(\"{tag}_tg_dwconv\", y, {out_bytes});")
     return defs, calls
 
 
@@ -472,8 +457,6 @@ def test_conv_on_cortex_m_matches_reference(core, tmp_path):
         calls += case_calls
         y = conv(x, w, bias, p)
         expected[f"c{i}_tg_conv"] = y.tobytes()
-        if p.groups == p.in_c:
-            expected[f"c{i}_tg_dwconv"] = y.tobytes()
     main_c = ('#include <stddef.h>\n#include "tg_conv.h"\n'
               "void tg_test_dump(const char *tag, const void *data, int32_t bytes);\n"
               + "".join(defs) + "int main(void)\n{\n    static int32_t y[4096];\n"

@@ -14,6 +14,7 @@ import numpy as np
 from tinygen.errors import TinygenError
 from tinygen.ir import Graph, Op, Tensor, storage_perm
 from tinygen.passes.layout import storage_data
+from tinygen.reference import dwconv as ref_dwconv
 from tinygen.reference.conv import ConvParams, conv_pack, with_conv_pack
 from tinygen.reference.fc import FcParams, fc_pack, with_fc_pack
 from tinygen.reference.pwconv import PwConvParams, pack_weights, with_pack
@@ -69,7 +70,6 @@ def _conv(graph: Graph, op: Op, mode: str) -> KernelCall:
                    pad_top=pt, pad_left=pl, groups=op.attrs["group"],
                    in_zp=x.quant.scalar_zp(), w_zp=_w_zp(w, cout), rq=rq)
     depthwise = p.groups == p.in_c and p.groups > 1
-    args = [x.name, w.name, b.name, y.name]
     if (kh, kw) == (1, 1) and p.groups == 1 and not any(op.attrs["pads"]):
         pw = PwConvParams(n=p.n, in_h=p.in_h, in_w=p.in_w, in_c=p.in_c, out_h=p.out_h,
                           out_w=p.out_w, out_c=p.out_c, stride_h=sh, stride_w=sw,
@@ -78,7 +78,12 @@ def _conv(graph: Graph, op: Op, mode: str) -> KernelCall:
         with_pack(pw, storage_data(w), b.data)
         return KernelCall("tg_pwconv", "pwconv", pw, [x.name, y.name])
     if depthwise:
-        return KernelCall("tg_dwconv", "conv", p, args)
+        dp = ref_dwconv.DwConvParams(
+            n=p.n, in_h=p.in_h, in_w=p.in_w, in_c=p.in_c, out_h=p.out_h, out_w=p.out_w,
+            out_c=p.out_c, k_h=kh, k_w=kw, stride_h=sh, stride_w=sw, dil_h=dh, dil_w=dw,
+            pad_top=pt, pad_left=pl, in_zp=p.in_zp, w_zp=p.w_zp, rq=rq)
+        ref_dwconv.with_pack(dp, storage_data(w), b.data)  # the call takes x only
+        return KernelCall("tg_dwconv", "dwconv", dp, [x.name, y.name])
     with_conv_pack(p, storage_data(w), b.data)  # tg_conv reads its weights from the pack
     return KernelCall("tg_conv", "conv", p, [x.name, y.name])
 
@@ -286,7 +291,7 @@ def choose_requant_forms(graph: Graph) -> Graph:
     (a tighter bound than the int32 worst case may allow the pre-shifted fast form).
 
     Needs: check_accumulators (op.attrs["acc_bound"]). Leaves: rq.form/chan/pre final, and
-    tg_pwconv's pack rebuilt with them.
+    the packs of tg_pwconv, tg_conv and tg_dwconv rebuilt with them.
     """
     for op in graph.ops:
         call = op.attrs.get("call")
@@ -299,6 +304,8 @@ def choose_requant_forms(graph: Graph) -> Graph:
                 call.params.pack = conv_pack(call.params)
             elif call.func == "tg_fc" and call.params.pack is not None:
                 call.params.pack = fc_pack(call.params)
+            elif call.func == "tg_dwconv":
+                call.params.pack = ref_dwconv.pack_weights(call.params)
     return graph
 
 

@@ -1,4 +1,5 @@
-"""Convolution, the numpy twin of runtime_c/src/tg_conv.c (contract in tg_conv.h).
+"""Convolution, the numpy twin of runtime_c/src/tg_conv.c (contract in tg_conv.h); the
+grouped convolution here is also the contract of depthwise (reference/dwconv.py).
 
 Tensors are channels-last: x [n][in_h][in_w][in_c] int8, w [out_c][k_h][k_w][in_c/groups]
 int8, bias [out_c] int32, y [n][out_h][out_w][out_c]. 1-D convolution is in_h = k_h = 1.
@@ -138,17 +139,6 @@ def conv(x: np.ndarray, w: np.ndarray, bias: np.ndarray, p: ConvParams) -> np.nd
     if p.rq is None:
         return _to_int32(acc)
     return requantize(_to_int32(acc), p.rq, channel_axis=-1)
-
-
-def dwconv(x: np.ndarray, w: np.ndarray, bias: np.ndarray, p: ConvParams) -> np.ndarray:
-    """Depthwise convolution exactly as tg_dwconv: groups == in_c, out_c = in_c * multiplier.
-
-    Output channel c reads input channel c // multiplier (ONNX group order), w is
-    [out_c][k_h][k_w][1], which is the grouped layout, so this is conv() with that check.
-    """
-    if p.groups != p.in_c or p.out_c % p.in_c != 0:
-        raise ValueError("depthwise needs groups == in_c and out_c a multiple of in_c")
-    return conv(x, w, bias, p)
 
 
 def _to_int32(acc: np.ndarray) -> np.ndarray:
