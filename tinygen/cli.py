@@ -77,6 +77,9 @@ def add_build_flags(p: argparse.ArgumentParser) -> None:
     g.add_argument("--tables", choices=["onnx", "onnxruntime"], default="onnx",
                    help="Sigmoid/Tanh/Softmax as the ONNX definition (default) or as "
                         "onnxruntime approximates them")
+    g.add_argument("--stream", choices=["auto", "off"], default="auto",
+                   help="auto: compute runs of high-resolution layers a band of rows at a "
+                        "time where that lowers the arena (default); off: whole tensors")
     p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
 
 
@@ -92,7 +95,7 @@ def build_options(args):
                         align=args.align, arena_limit=args.arena_limit,
                         flash_limit=args.flash_limit, inplace=not args.no_inplace,
                         regions=args.region, io=args.io, kernels=args.kernels,
-                        tables=args.tables)
+                        tables=args.tables, stream=args.stream)
 
 
 def flags_text(args) -> str:

@@ -18,6 +18,7 @@ from tinygen.passes.fuse import fuse_activation
 from tinygen.passes.layout import assign_layout
 from tinygen.passes.overflow import check_accumulators
 from tinygen.passes.params import choose_requant_forms, lower_params
+from tinygen.passes.stream import stream_layers, stream_runs
 from tinygen.plan import MemoryPlan, build_buffers, plan_memory, verify_plan
 from tinygen.plan.lifetimes import lower_bound
 from tinygen.schedule import order_ops
@@ -40,6 +41,7 @@ class BuildOptions:
     io: str = "arena"
     kernels: str = "auto"  # auto: the fastest path of each core; portable: plain C only
     tables: str = "onnx"  # Sigmoid/Tanh/Softmax: the ONNX definition, or onnxruntime's own
+    stream: str = "auto"  # auto: row-stream the runs that lower the arena; off: whole tensors
 
 
 def options_text(opts: BuildOptions) -> str:
@@ -50,6 +52,8 @@ def options_text(opts: BuildOptions) -> str:
         parts.append(f"--tables {opts.tables}")
     if not opts.inplace:
         parts.append("--no-inplace")
+    if opts.stream != "auto":
+        parts.append(f"--stream {opts.stream}")
     parts += [f"--region {n}={s}" for n, s in opts.regions]
     parts += [f"--input-shape {s}" for s in opts.input_shapes]
     return " ".join(parts)
@@ -64,6 +68,10 @@ class Compiled:
     weights_bytes: int
     per_op_macs: list[int]
     const_bytes: int = 0  # all flash constants of the emitted tree (set by codegen)
+    # whole-tensor execution (no streamed runs): lower bound and arena of its plan (None:
+    # it does not fit the regions at all)
+    whole_bound: int | None = None
+    whole_arena: int | None = None
 
 
 def count_macs(graph: Graph) -> list[int]:
@@ -72,13 +80,22 @@ def count_macs(graph: Graph) -> list[int]:
     for op in graph.ops:
         call = op.attrs.get("call")
         p = call.params if call else None
-        if op.kind == "conv":
-            out.append(p.n * p.out_h * p.out_w * p.out_c * p.k_h * p.k_w * (p.in_c // p.groups))
+        if op.kind == "stream":  # each member's rows, as the band loop computes them
+            out.append(sum(_conv_macs(m.call.params, sum(band[j][1] - band[j][0]
+                                                         for band in op.attrs["run"].rows))
+                           for j, m in enumerate(op.attrs["run"].members)))
+        elif op.kind == "conv":
+            out.append(_conv_macs(p, p.out_h))
         elif op.kind == "fc":
             out.append(p.rows * p.out * p.depth)
         else:
             out.append(0)
     return out
+
+
+def _conv_macs(p, rows: int) -> int:
+    """MACs of `rows` output rows of a convolution (every image of the batch)."""
+    return p.n * rows * p.out_w * p.out_c * p.k_h * p.k_w * (p.in_c // p.groups)
 
 
 def constant_bytes(graph: Graph) -> int:
@@ -120,9 +137,16 @@ def compile_model(path: str, opts: BuildOptions) -> Compiled:
     graph = lower_params(graph, opts.requant, opts.tables)
     graph = check_accumulators(graph)
     graph = choose_requant_forms(graph)
-    plan = plan_arena(graph, opts)
+    whole = plan_whole(graph, opts)
+    if opts.stream == "auto":
+        graph = stream_layers(graph, lambda g: bound_of(g, opts),
+                              lambda g: arena_of(g, opts), int(sum(count_macs(graph))))
+    plan = whole if whole is not None and not stream_runs(graph) else None
+    plan = check_limits(graph, plan, opts) if plan else plan_arena(graph, opts)
     macs = count_macs(graph)
-    c = Compiled(graph, plan, opts, int(sum(macs)), constant_bytes(graph), macs)
+    c = Compiled(graph, plan, opts, int(sum(macs)), constant_bytes(graph), macs,
+                 whole_bound=whole.lower_bound if whole else None,
+                 whole_arena=whole.arena_bytes if whole else None)
     from tinygen.codegen.emit import render_tree  # sets c.const_bytes: every flash constant
     render_tree(c, "")
     if opts.flash_limit is not None and c.const_bytes > opts.flash_limit:
@@ -156,8 +180,34 @@ def check_regions(regions: list[tuple[str, int]]) -> None:
         seen[name.upper()] = name
 
 
-def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
-    """Schedule, build buffers and place them; the plan is verified before it is returned."""
+def plan_whole(graph: Graph, opts: BuildOptions) -> MemoryPlan | None:
+    """The whole-tensor plan without the limits (None: it fits no region; with --stream
+    off that is the user's error, raised by plan_arena)."""
+    try:
+        return plan_arena(graph, opts, limits=False)
+    except TinygenError:
+        if opts.stream == "off":
+            raise
+        return None
+
+
+def bound_of(graph: Graph, opts: BuildOptions) -> int:
+    """Lower bound of graph's buffers in the given order (no placement: cheap)."""
+    buffers, _ = build_buffers(graph, list(range(len(graph.ops))), opts.inplace, opts.io)
+    return lower_bound(buffers, len(graph.ops))
+
+
+def arena_of(graph: Graph, opts: BuildOptions) -> float:
+    """Arena bytes the planner gives graph (inf when it fits no region)."""
+    try:
+        return plan_arena(graph, opts, limits=False).arena_bytes
+    except TinygenError:
+        return float("inf")
+
+
+def plan_arena(graph: Graph, opts: BuildOptions, limits: bool = True) -> MemoryPlan:
+    """Schedule, build buffers and place them; the plan is verified before it is returned.
+    limits=False: skip the size checks (--arena-limit, 2 GiB), for plans being compared."""
     check_regions(opts.regions)
     if opts.align < 4 or opts.align & (opts.align - 1):
         raise TinygenError(f"--align {opts.align} must be a power of two >= 4")
@@ -177,6 +227,12 @@ def plan_arena(graph: Graph, opts: BuildOptions) -> MemoryPlan:
     if problems:
         raise TinygenError("internal error: memory plan failed verification: " + problems[0],
                            file=graph.source_path)
+    return check_limits(graph, plan, opts) if limits else plan
+
+
+def check_limits(graph: Graph, plan: MemoryPlan, opts: BuildOptions) -> MemoryPlan:
+    """Refuse a plan over 2 GiB or over --arena-limit; returns plan."""
+    buffers = plan.buffers
     if plan.arena_bytes > MAX_BYTES:
         raise TinygenError(f"arena needs {plan.arena_bytes} bytes; it must stay below 2 GiB",
                            file=graph.source_path)
@@ -199,7 +255,29 @@ def summary(c: Compiled) -> dict:
         "ops": sum(1 for op in c.graph.ops if op.kind != "view"),
         "planner": c.plan.planner,
         "order": c.options.order,
+        "stream": c.options.stream,
+        "whole_tensor_bound_bytes": c.whole_bound,
+        "streamed_runs": streamed_runs(c),
     }
+
+
+def streamed_runs(c: Compiled) -> list[dict]:
+    """What `plan --json` says of each streamed run: its layers, band height, rings."""
+    out = []
+    for k, run in stream_runs(c.graph):
+        out.append({
+            "op": k,
+            "layers": [{"node": m.op.name, "kernel": m.call.func} for m in run.members],
+            "band_rows": run.band,
+            "bands": len(run.rows),
+            "extra_calls": run.extra_calls,
+            "rings": [{"tensor": whole, "buffer": ring, "rows": rows,
+                       "bytes": c.graph.tensors[ring].nbytes}
+                      for whole, ring, rows in zip(run.replaced, run.rings, run.ring_rows(),
+                                                   strict=True)],
+            "scratch_bytes": run.scratch_bytes,
+        })
+    return out
 
 
 def storage_inputs(graph: Graph, floats: list[np.ndarray]) -> list[np.ndarray]:

@@ -10,6 +10,7 @@ import numpy as np
 from tinygen.ir import Graph
 from tinygen.kernels import KERNELS
 from tinygen.passes.layout import storage_data
+from tinygen.reference.rows import run_bands
 
 
 def run_reference(graph: Graph, inputs: list[np.ndarray], order: list[int] | None = None
@@ -43,6 +44,8 @@ def run_reference_all(graph: Graph, inputs: list[np.ndarray], order: list[int] |
             y = get(op.inputs[0])
         elif op.kind == "copy":
             y = get(op.inputs[0]).copy()
+        elif op.kind == "stream":
+            y = run_stream(graph, op.attrs["run"], get)
         else:
             call = op.attrs["call"]
             kern = KERNELS[call.func]
@@ -59,3 +62,23 @@ def run_reference_all(graph: Graph, inputs: list[np.ndarray], order: list[int] |
                 y = kern.reference(call.params, *args)
         env[out.name] = np.asarray(y).reshape(out.storage_shape()).astype(out.dtype)
     return env
+
+
+def run_stream(graph: Graph, run, get) -> np.ndarray:
+    """A streamed run (passes/stream.py) through run_rows, band by band and ring by ring, the
+    same calls the emitted band loop makes; returns the run's output."""
+    layers = []
+    for m in run.members:
+        call = m.call
+        p = call.params
+        layers.append((KERNELS[call.func].reference, p, [get(n) for n in call.args[1:-1]],
+                       p.in_c, p.out_c))
+    rings = []
+    for name in run.rings:
+        t = graph.tensors[name]
+        # rows never written must not be read: start the rings as garbage, not zeros
+        rings.append(np.full(t.size, 0x5A, dtype=t.dtype))
+    out = graph.tensors[run.members[-1].y]
+    y = np.zeros(out.size, dtype=out.dtype)
+    x = get(run.members[0].x).reshape(-1)
+    return run_bands(layers, x, rings, y, run.rows)

@@ -107,6 +107,8 @@ class TreeWriter:
         if op.kind == "copy":
             t = self.g.tensors[op.outputs[0]]
             return [f"memcpy({self.ptr(op.outputs[0])}, {self.ptr(op.inputs[0])}, {t.nbytes}u);"]
+        if op.kind == "stream":
+            return self.stream_lines(op.attrs["run"], index)
         call = op.attrs["call"]
         kern = KERNELS[call.func]
         self.families.add(kern.family)
@@ -132,6 +134,32 @@ class TreeWriter:
             return [f"{{ int32_t b; for (b = 0; b < {call.batch}; ++b) {{",
                     f"    {call.func}(&{pname}, {', '.join(args)});", "} }"]
         return [f"{call.func}(&{pname}, {', '.join(args)});"]
+
+    def stream_lines(self, run, index: int) -> list[str]:
+        """A streamed run (passes/stream.py): a loop over bands, each calling every member
+        on its rows from a flash table [band][member][row0, row1] (empty ranges skipped)."""
+        table = f"{self.P}_bands{index}"
+        rows = np.array(run.rows, dtype=np.int32).reshape(len(run.rows), -1)
+        kind = "uint16_t" if rows.max() <= 0xFFFF else "int32_t"
+        body = ",\n".join("    {" + ", ".join(f"{v}" for v in r) + "}" for r in rows)
+        self.pw.decls.append(f"/* rows [row0, row1) of each layer per band */\n"
+                             f"static const {kind} {table}[{len(rows)}][{rows.shape[1]}] = "
+                             f"{{\n{body}\n}};")
+        self.pw.const_bytes += rows.size * (2 if kind == "uint16_t" else 4)
+        scratch = f"(void *){self.ptr(run.scratch)}" if run.scratch else "NULL"
+        lines = ["{", "    int32_t band;", f"    for (band = 0; band < {len(rows)}; ++band) {{",
+                 f"        const {kind} *r = {table}[band];"]
+        for j, m in enumerate(run.members):
+            call = m.call
+            kern = KERNELS[call.func]
+            self.families.add(kern.family)
+            pname = self.pw.struct(kern.struct, f"{self.P}_op{index}_{j}", call.params)
+            args = [self.typed(n, True) if n else "NULL" for n in call.args[:-1]]
+            args += [self.typed(call.args[-1], False), scratch,
+                     f"(int32_t)r[{2 * j}]", f"(int32_t)r[{2 * j + 1}]"]
+            lines += [f"        if (r[{2 * j}] < r[{2 * j + 1}]) {{",
+                      f"            {call.func}(&{pname}, {', '.join(args)});", "        }"]
+        return lines + ["    }", "}"]
 
     def io_entries(self, ios, is_input: bool) -> list[dict]:
         """What the header says about each input/output: C type, range, storage dims."""
@@ -187,8 +215,7 @@ class TreeWriter:
             before = self.pw.const_bytes
             lines = self.op_lines(k, len(calls))
             calls.append({"index": len(calls), "op_index": k,
-                          "comment": f"{op.attrs['call'].func if 'call' in op.attrs else op.kind}"
-                                     f" <- {where}",
+                          "comment": f"{call_label(op)} <- {where}",
                           "lines": lines,
                           "const_bytes": self.pw.const_bytes - before})  # this call's flash
         pro, epi = self.flips(g.inputs, "input"), self.flips(g.outputs, "output")
@@ -217,6 +244,13 @@ class TreeWriter:
             "extra_regions": extra, "float_mode": c.options.requant == "float",
             "needs": config_needs(c),
         }
+
+
+def call_label(op) -> str:
+    """What an op runs, for comments: its kernel, or a streamed run's kernels."""
+    if op.kind == "stream":
+        return "stream(" + ", ".join(m.call.func for m in op.attrs["run"].members) + ")"
+    return op.attrs["call"].func if "call" in op.attrs else op.kind
 
 
 def config_needs(c: Compiled) -> list[str]:

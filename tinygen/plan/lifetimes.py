@@ -81,6 +81,8 @@ def build_buffers(graph: Graph, order: list[int], inplace: bool, io: str
         if scratch:
             name = scratch_name(k)
             buffers[name] = Buffer(name, scratch, s, s, [], scratch_of=k)
+        for extra in op.outputs[1:]:  # a streamed run's rings and scratch (passes/stream.py)
+            new_buffer(extra, s)
         out = op.outputs[0]
         if op.kind == "view":
             join(out, owner[op.inputs[0]])

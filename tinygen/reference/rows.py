@@ -55,3 +55,18 @@ def run_rows(dense, p, x_buf: np.ndarray, others: list, y_buf: np.ndarray, row0:
     for i, r in enumerate(range(row0, row1)):
         y_rows[ring_index(r, p.y_ring)] = y[i]
     return y_buf
+
+
+def run_bands(layers: list, x_buf: np.ndarray, ring_bufs: list[np.ndarray],
+              y_buf: np.ndarray, rows: list[list[tuple[int, int]]]) -> np.ndarray:
+    """A streamed run as the emitted band loop makes it: per band, layer i computes its rows
+    rows[band][i] (skipped when empty) from its input (x_buf for the first layer, else ring
+    i-1) into its output (ring i, y_buf for the last). layers[i] = (dense, params, others,
+    in_c, out_c) as run_rows takes them, params carrying the ring sizes. Returns y_buf."""
+    bufs = [x_buf, *ring_bufs, y_buf]
+    for band in rows:
+        for i, ((dense, p, others, in_c, out_c), (row0, row1)) in enumerate(
+                zip(layers, band, strict=True)):
+            if row1 > row0:
+                run_rows(dense, p, bufs[i], others, bufs[i + 1], row0, row1, in_c, out_c)
+    return y_buf
