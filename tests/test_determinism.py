@@ -33,7 +33,7 @@ from tinygen.codegen.emit import RUNTIME, render_tree  # noqa: E402
 from tinygen.compiler import BuildOptions, compile_model  # noqa: E402
 
 PINNED_MODEL_SHA256 = "5525b0fdcab91f47c613094d05f784763442e0cd3d6485e36b64ab4deec12985"
-PINNED_TREE_SHA256 = "ef2031ea8fe9158563b4d8a39b8699f70b15f587b2bec8a8734a23af1629bd1c"
+PINNED_TREE_SHA256 = "62b55cc5fda9e17ceb91c44ee0f4408ed97ff9774c028a68a70a49cb9fa899d7"
 GENERATED = ("model.c", "model.h", "tg_config.h", "model_sources.cmake", "model_sources.mk")
 
 

@@ -152,6 +152,7 @@ def test_hostile_tree_compiles_warning_free(hostile, cc, tmp_path):
         assert r.returncode == 0, r.stderr
 
 
+@pytest.mark.onnxruntime_exact
 def test_hostile_model_runs_bit_exact_and_matches_onnxruntime(hostile):
     path, c, _ = hostile
     res = run_check(c, str(path), random_inputs(c.graph, 20, seed=1), "names",

@@ -36,6 +36,7 @@ def random_feeds(model: tinygen.Model, rng) -> list[np.ndarray]:
     return feeds
 
 
+@pytest.mark.onnxruntime_exact
 def test_the_docs_example_runs_as_written(monkeypatch, tmp_path):
     text = (ROOT / "docs" / "python.md").read_text()
     blocks = re.findall(r"```python\n(.*?)```", text, re.S)
@@ -73,6 +74,7 @@ def test_run_is_the_reference_bit_for_bit(path, io, requant):
 
 
 @pytest.mark.parametrize("path", [PUMP, DOOR], ids=lambda p: p.stem)
+@pytest.mark.onnxruntime_exact
 def test_float_mode_equals_onnxruntime(path):
     """source: onnxruntime's CPU provider, default optimisations. DESIGN's numerics
     contract: float requantization reproduces its integer Conv/MatMul/Gemm/Add/pooling
@@ -147,6 +149,7 @@ def test_bad_flags_raise_tinygen_error(kwargs, message):
         tinygen.compile(PUMP, **kwargs)
 
 
+@pytest.mark.onnxruntime_exact
 def test_emit_and_check_as_the_cli_does(tmp_path):
     cam = tinygen.compile(DOOR, prefix="cam")
     pump = tinygen.compile(PUMP, prefix="pump", requant="float")

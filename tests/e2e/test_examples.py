@@ -12,10 +12,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from tests.ort_exact import skip_if_onnxruntime_inexact
 from tinygen.check import load_inputs, random_inputs, run_check
 from tinygen.compiler import BuildOptions, compile_model
-
-from tests.ort_exact import skip_if_onnxruntime_inexact
 
 ROOT = Path(__file__).resolve().parents[2]
 MODELS = sorted(p for p in (ROOT / "examples").glob("*/*.onnx") if not p.stem.endswith("_float"))
@@ -49,6 +48,7 @@ def test_example_is_bit_exact_against_reference(model, requant):
 
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda p: p.stem)
+@pytest.mark.onnxruntime_exact
 def test_float_mode_agrees_with_onnxruntime(model):
     c = compile_model(str(model), BuildOptions(requant="float"))
     samples = random_inputs(c.graph, 100, seed=11)
@@ -64,6 +64,7 @@ def test_float_mode_agrees_with_onnxruntime(model):
 
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda p: p.stem)
+@pytest.mark.onnxruntime_exact
 def test_fixed_mode_stays_within_one_lsb_of_onnxruntime(model):
     c = compile_model(str(model), BuildOptions(requant="fixed"))
     res = run_check(c, str(model), random_inputs(c.graph, 50, seed=3), "test", against_ort=True)
@@ -102,6 +103,7 @@ def test_float_mode_matches_the_onnx_reference_evaluator(model):
 
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda p: p.stem)
+@pytest.mark.onnxruntime_exact
 def test_sample_inputs_classify_like_onnxruntime(model):
     """The bundled sample inputs give onnxruntime's class on every sample (float mode)."""
     import onnxruntime as ort

@@ -12,11 +12,10 @@ from pathlib import Path
 
 import pytest
 
+from tests.ort_exact import skip_if_onnxruntime_inexact
 from tinygen.check import load_inputs, random_inputs, run_check
 from tinygen.compiler import BuildOptions, compile_model
 from tinygen.errors import TinygenError
-
-from tests.ort_exact import skip_if_onnxruntime_inexact
 
 ROOT = Path(__file__).resolve().parents[2]
 MODELS = sorted(p for p in (ROOT / "examples").glob("*/*.onnx") if not p.stem.endswith("_float"))
@@ -24,6 +23,7 @@ GESTURE = ROOT / "examples" / "gesture_band" / "gesture_band.onnx"
 
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda p: p.stem)
+@pytest.mark.onnxruntime_exact
 def test_onnxruntime_tables_match_onnxruntime_exactly(model):
     c = compile_model(str(model), BuildOptions(requant="float", tables="onnxruntime"))
     samples = random_inputs(c.graph, 100, seed=23)

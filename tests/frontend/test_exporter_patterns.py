@@ -99,6 +99,7 @@ def quantized(tmp_path_factory):
 
 @pytest.mark.parametrize("fmt", ["qdq", "qop"])
 @pytest.mark.parametrize("name", [m[0] for m in MODELS])
+@pytest.mark.onnxruntime_exact
 def test_exported_model_is_bit_exact_and_matches_onnxruntime(quantized, name, fmt):
     path = str(quantized(name, fmt))
     for mode in ("fixed", "float"):
@@ -372,6 +373,7 @@ def test_reduce_mean_over_axes_that_are_not_consecutive_is_refused(tmp_path):
     ([1], False, (1, 5, 7)), ([-1], False, (1, 5, 7)), ([0, 1], True, (1, 5, 7)),
     ([1, 2], False, (1, 3, 4, 6)),
 ])
+@pytest.mark.onnxruntime_exact
 def test_reduce_mean_shapes_match_onnxruntime(tmp_path, axes, keep, shape):
     # Source: onnxruntime on the quantized model (ReduceMean runs in float there, between its
     # DequantizeLinear and QuantizeLinear). Rank-4 inputs come from a conv (stored
@@ -392,6 +394,7 @@ def test_reduce_mean_shapes_match_onnxruntime(tmp_path, axes, keep, shape):
         assert res.onnxruntime["max_abs_diff"] <= (0 if mode == "float" else 1), res.onnxruntime
 
 
+@pytest.mark.onnxruntime_exact
 def test_linear_as_matmul_then_add_in_one_float_step(tmp_path):
     # A quantizer that leaves MatMul's output float: DequantizeLinear -> MatMul -> Add(bias)
     # -> Relu -> QuantizeLinear; the bias joins the fully connected op, Relu its clamp.
@@ -443,6 +446,7 @@ def bn_after_pool(seed: int) -> onnx.ModelProto:
 @pytest.mark.parametrize("make,fmt", [(bn_input_2d, "qdq"), (bn_features, "qdq"),
                                       (bn_after_pool, "qdq"), (bn_after_pool, "qop")],
                          ids=["input_2d", "features", "after_pool_qdq", "after_pool_qop"])
+@pytest.mark.onnxruntime_exact
 def test_batch_norm_is_a_depthwise_conv(tmp_path, make, fmt):
     for seed in range(2):
         path = str(quantize(make(seed), tmp_path / f"bn{seed}.onnx", fmt, seed=seed))

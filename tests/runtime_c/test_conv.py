@@ -394,6 +394,7 @@ def qlinear_outputs(seed: int):
     return ours, nchw_to_channels_last(theirs, case["spatial"]), c_out
 
 
+@pytest.mark.onnxruntime_exact
 def test_float_requant_matches_onnxruntime_qlinearconv():
     matched = total = 0
     for seed in QLINEAR_SEEDS:
