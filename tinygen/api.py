@@ -194,7 +194,7 @@ class Model:
 
 
 def compile(model: str | Path, *, requant: str = "fixed", prefix: str = "model",
-            input_shapes: list[str] | None = None, planner: str = "greedy-size",
+            input_shapes: list[str] | None = None, planner: str = "auto",
             order: str = "given", align: int = 8, arena_limit: int | str | None = None,
             flash_limit: int | str | None = None, inplace: bool = True,
             regions: list[tuple[str, int | str]] | None = None, io: str = "arena") -> Model:

@@ -63,7 +63,7 @@ def add_build_flags(p: argparse.ArgumentParser) -> None:
     g.add_argument("--prefix", default="model", help="C name prefix and file name (model)")
     g.add_argument("--input-shape", action="append", default=[], metavar="NAME=1x3x96x96",
                    help="pin a symbolic input shape (repeatable)")
-    g.add_argument("--planner", choices=list(PLANNERS), default="greedy-size")
+    g.add_argument("--planner", choices=list(PLANNERS), default="auto")
     g.add_argument("--order", choices=["given", "min-peak"], default="given")
     g.add_argument("--align", type=int, default=8, metavar="BYTES")
     g.add_argument("--arena-limit", type=parse_size, metavar="SIZE")

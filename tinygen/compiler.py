@@ -31,7 +31,7 @@ class BuildOptions:
     requant: str = "fixed"
     prefix: str = "model"
     input_shapes: list[str] = field(default_factory=list)
-    planner: str = "greedy-size"
+    planner: str = "auto"
     order: str = "given"
     align: int = 8
     arena_limit: int | None = None
@@ -254,6 +254,9 @@ def summary(c: Compiled) -> dict:
         "macs": c.macs,
         "ops": sum(1 for op in c.graph.ops if op.kind != "view"),
         "planner": c.plan.planner,
+        "planner_won": c.plan.winner,
+        "planner_optimal": c.plan.optimal,
+        "planner_gap_bytes": c.plan.arena_bytes - c.plan.lower_bound,
         "order": c.options.order,
         "stream": c.options.stream,
         "whole_tensor_bound_bytes": c.whole_bound,

@@ -196,3 +196,68 @@ def test_heap_greedy_order_is_the_greedy_rule(data):
             users.setdefault(b, set()).add(i)
     args = (n, deps, defines, uses, users, sizes.__getitem__)
     assert greedy_order(*args) == simple_greedy_order(*args)
+
+
+@fuzz_settings(2.0)
+@given(buffers(max_buffers=14), st.sampled_from([4, 8]))
+def test_auto_never_loses_to_a_single_strategy(case, align):
+    from tinygen.plan.strategies import HEURISTICS, aligned_lower_bound
+    bufs, steps = case
+    auto = plan_memory(bufs, {}, list(range(steps)), "auto", align, None)
+    assert verify_plan(auto) == []
+    assert brute_force_problems(auto) == []
+    arena_bufs = [b for b in bufs.values() if b.external is None]
+    assert auto.arena_bytes >= aligned_lower_bound(arena_bufs, align)
+    for name in HEURISTICS:
+        single = plan_memory(copy.deepcopy(bufs), {}, list(range(steps)), name, align, None)
+        assert verify_plan(single) == []
+        assert auto.arena_bytes <= single.arena_bytes, name
+
+
+def test_exact_search_reaches_the_bound_where_every_heuristic_loses():
+    # hand-made (found by a random search, then fixed): sizes, lifetimes [first, last]
+    spec = [("b0", 32, 2, 3), ("b1", 8, 2, 3), ("b2", 40, 0, 2), ("b3", 24, 3, 3),
+            ("b4", 40, 1, 3), ("b5", 24, 3, 3)]
+    from tinygen.plan.strategies import HEURISTICS
+
+    def fresh():
+        return {n: Buffer(n, s, f, last, [n]) for n, s, f, last in spec}
+    # live at step 3: 32 + 8 + 24 + 40 + 24 = 128 B, the most at any step
+    bound = lower_bound(fresh(), 4)
+    assert bound == 128
+    for name in HEURISTICS:
+        plan = plan_memory(fresh(), {}, [0, 1, 2, 3], name, 8, None)
+        assert plan.arena_bytes > bound, name
+    auto = plan_memory(fresh(), {}, [0, 1, 2, 3], "auto", 8, None)
+    assert (auto.arena_bytes, auto.winner, auto.optimal) == (bound, "exact", True)
+    assert verify_plan(auto) == [] and brute_force_problems(auto) == []
+
+
+def test_exact_search_is_bounded_by_nodes_and_says_so():
+    from tinygen.plan import exact
+    # many equal buffers live in overlapping pairs: many orders, a budget of a few nodes
+    bufs = [Buffer(f"b{i}", 8 * (1 + i % 5), i // 2, i // 2 + 2, [f"b{i}"]) for i in range(20)]
+    saved = exact.NODE_BUDGET
+    exact.NODE_BUDGET = 3
+    try:
+        res = exact.exact_placement(bufs, 8, 10**6, 8)
+    finally:
+        exact.NODE_BUDGET = saved
+    assert not res.proven and res.nodes == 3 and "budget" in res.note
+
+
+def test_default_planner_meets_the_bound_on_every_example():
+    from pathlib import Path
+
+    from tinygen.compiler import BuildOptions, compile_model
+    from tinygen.plan.strategies import aligned_lower_bound
+    root = Path(__file__).resolve().parents[2] / "examples"
+    models = sorted(p for p in root.glob("*/*.onnx") if not p.name.endswith("_float.onnx"))
+    assert models
+    for path in models:
+        plan = compile_model(str(path), BuildOptions()).plan
+        arena_bufs = [b for b in plan.buffers.values() if b.external is None]
+        # the whole-tensor bound with each buffer rounded up to --align (8): no placement
+        # can go below it
+        assert plan.arena_bytes == aligned_lower_bound(arena_bufs, plan.align), path.name
+        assert plan.optimal and plan.planner == "auto"

@@ -237,6 +237,11 @@ def plan_table(c) -> str:
             "(this order)",
             f"  no reuse      {fig.naive:>9} B   every buffer its own aligned range",
             f"  planner loss  {fig.loss:>9} B   arena - lower bound (placement and alignment)",
+            f"  placement     {plan.winner or plan.planner}"
+            + (f" won ({', '.join(f'{k} {v} B' for k, v in plan.tried.items())})"
+               if plan.tried else "")
+            + (", proven optimal" if plan.optimal else ", not proven optimal"),
+            *(f"                {note}" for note in plan.notes),
             f"  peak          {_peak_text(fig, n)}"]
     if fig.external_bytes:
         out.append(f"  external      {fig.external_bytes:>9} B   caller's input/output buffers")
