@@ -26,9 +26,13 @@ def test_memory_table_matches_the_compiler(pump):
     assert not mb.error
     rows = md_rows(bench.memory_table([mb]))
     by_planner = {r[1]: r for r in rows if r[0] == "pump_vibration"}
-    assert set(by_planner) == {"greedy-size", "first-fit", "naive", "*lower bound*"}
-    info = summary(pump)  # default flags: greedy-size, given order
-    assert int(by_planner["greedy-size"][2]) == info["arena_bytes"]
+    assert set(by_planner) == {"auto", "greedy-size", "first-fit", "greedy-lifetime",
+                               "greedy-area", "naive", "*lower bound*"}
+    info = summary(pump)  # default flags: planner auto, given order
+    assert int(by_planner["auto"][2]) == info["arena_bytes"]
+    for p in ("greedy-size", "first-fit", "greedy-lifetime", "greedy-area"):  # auto never loses
+        for col in range(2, 6):
+            assert int(by_planner["auto"][col]) <= int(by_planner[p][col])
     assert int(by_planner["naive"][2]) == info["naive_bytes"]
     assert int(by_planner["*lower bound*"][2]) == info["lower_bound_bytes"]
     for r in rows:  # no planner below its order's lower bound
