@@ -117,7 +117,7 @@ def test_report_names_the_better_order(twin_path, pump):
     given = summary(c)["arena_bytes"]
     best = compile_model(str(twin_path), BuildOptions(order="min-peak")).plan.arena_bytes
     assert best < given
-    assert (f"Smallest arena: {best} B with --planner greedy-size --order min-peak, "
+    assert (f"Smallest arena: {best} B with --planner auto --order min-peak, "
             f"{given - best} B below this build's {given} B.") in text
     assert "is the smallest of these" in render_report(pump, None, None, "f")
 
@@ -153,6 +153,7 @@ def test_planner_that_does_not_fit_the_regions_is_shown_not_raised():
     # first-fit (2944 B in one arena) does not split into 2048 + 1024 either
     assert summary(c)["naive_bytes"] > 3072
     rows = compare_planners(c)
-    assert [r.planner for r in rows if r.arena is None] == ["first-fit", "naive"] * 2
-    assert text.count("fits in no region") == 4
+    unfit = [r.planner for r in rows if r.arena is None]
+    assert "naive" in unfit and "first-fit" in unfit and "auto" not in unfit, unfit
+    assert text.count("fits in no region") == len(unfit)
     assert f"This build's arena, {summary(c)['arena_bytes']} B, is the smallest" in text
